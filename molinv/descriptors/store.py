@@ -1,0 +1,116 @@
+"""Descriptors computed once and kept on disk, keyed by molecule and settings.
+
+Layout: one folder per descriptor setting (its name and a hash of
+:meth:`MoleculeDescriptor.settings`), holding ``settings.json`` and numbered
+``part-NNNNNN.npz`` files (numpy arrays only, read with ``allow_pickle=False``).
+Each part lists the keys of its molecules (a hash of atomic numbers and exact
+coordinates) beside their features. Parts are written as each chunk finishes, so
+an interrupted run keeps its finished chunks and a rerun computes only the rest.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+from pathlib import Path
+from typing import Sequence
+
+import numpy as np
+from ase import Atoms
+from tqdm.auto import tqdm
+
+from .base import AtomFeatures, MoleculeDescriptor, validate_molecules
+
+
+def molecule_key(atoms: Atoms) -> str:
+    """Hash of the atomic numbers and exact float64 coordinates (Angstrom)."""
+    digest = hashlib.blake2b(digest_size=16)
+    digest.update(np.ascontiguousarray(atoms.numbers, dtype=np.int64).tobytes())
+    digest.update(np.ascontiguousarray(atoms.positions, dtype=np.float64).tobytes())
+    return digest.hexdigest()
+
+
+def settings_key(settings: dict) -> str:
+    return hashlib.sha256(json.dumps(settings, sort_keys=True).encode()).hexdigest()[:16]
+
+
+class FeatureStore:
+    """A folder of cached descriptor values; see the module docstring."""
+
+    def __init__(self, root):
+        self.root = Path(root)
+
+    def folder(self, descriptor: MoleculeDescriptor) -> Path:
+        settings = descriptor.settings()
+        folder = self.root / f"{settings['descriptor']}-{settings_key(settings)}"
+        folder.mkdir(parents=True, exist_ok=True)
+        record = folder / "settings.json"
+        if not record.exists():
+            record.write_text(json.dumps(settings, indent=2, sort_keys=True))
+        return folder
+
+    def _load(self, folder: Path, per_atom: bool) -> dict[str, tuple]:
+        """Key -> (values) or (values, numbers) for every cached molecule."""
+        cached = {}
+        for part in sorted(folder.glob("part-*.npz")):
+            with np.load(part, allow_pickle=False) as data:
+                keys, values = data["molecule_keys"], data["values"]
+                if per_atom:
+                    numbers, offsets = data["numbers"], data["offsets"]
+                    for i, key in enumerate(keys):
+                        cached[str(key)] = (values[offsets[i] : offsets[i + 1]], numbers[offsets[i] : offsets[i + 1]])
+                else:
+                    for key, row in zip(keys, values):
+                        cached[str(key)] = (row,)
+        return cached
+
+    def _save_part(self, folder: Path, keys: list[str], features) -> None:
+        existing = sorted(folder.glob("part-*.npz"))
+        number = int(existing[-1].stem.split("-")[1]) + 1 if existing else 0
+        arrays = {"molecule_keys": np.array(keys)}
+        if isinstance(features, AtomFeatures):
+            arrays.update(values=features.values, numbers=features.numbers, offsets=features.offsets)
+        else:
+            arrays["values"] = features
+        target = folder / f"part-{number:06d}.npz"
+        partial = folder / f".part-{number:06d}.{os.getpid()}.tmp.npz"
+        np.savez(partial, **arrays)
+        os.replace(partial, target)
+
+    def describe(
+        self,
+        descriptor: MoleculeDescriptor,
+        molecules: Sequence[Atoms],
+        chunk_size: int = 1000,
+        progress: bool | None = None,
+    ):
+        """Features of ``molecules`` from a fitted descriptor, computing only what is not cached.
+
+        Returns what ``descriptor.transform`` returns, rows in the order of ``molecules``.
+        """
+        molecules = validate_molecules(molecules)
+        folder = self.folder(descriptor)
+        per_atom = descriptor.per_atom
+        cached = self._load(folder, per_atom)
+        keys = [molecule_key(atoms) for atoms in molecules]
+        missing = sorted({key: i for i, key in enumerate(keys) if key not in cached}.values())
+        with tqdm(total=len(missing), unit="mol", desc=f"describe {type(descriptor).__name__}",
+                  disable=None if progress is None else not progress) as bar:
+            for start in range(0, len(missing), chunk_size):
+                positions = missing[start : start + chunk_size]
+                chunk = [molecules[i] for i in positions]
+                features = descriptor.transform(chunk)
+                chunk_keys = [keys[i] for i in positions]
+                self._save_part(folder, chunk_keys, features)
+                if per_atom:
+                    for j, key in enumerate(chunk_keys):
+                        rows = slice(features.offsets[j], features.offsets[j + 1])
+                        cached[key] = (features.values[rows], features.numbers[rows])
+                else:
+                    for key, row in zip(chunk_keys, features):
+                        cached[key] = (row,)
+                bar.update(len(chunk))
+        if per_atom:
+            return AtomFeatures.from_blocks([cached[k][0] for k in keys], [cached[k][1] for k in keys])
+        return np.vstack([cached[k][0] for k in keys])

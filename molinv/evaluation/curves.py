@@ -1,0 +1,226 @@
+"""Learning curves: test error against training-set size, honestly measured.
+
+One held-out test set is drawn first and never trained on. Training sets of each
+size on a geometric ladder are drawn from the rest, several times per size with
+seeds that depend only on (seed, size, draw), so that every model on the same
+data sees identical splits. Hyperparameters are whatever the model chooses inside
+its own ``fit`` (use a cross-validated model: the test set plays no part).
+
+Every finished point is written to the run folder at once (an ``.npz`` of test
+predictions and a ``.json`` of its numbers), so an interrupted run resumes from
+the finished points.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Sequence
+
+import numpy as np
+import pandas as pd
+from sklearn.base import clone
+from tqdm.auto import tqdm
+
+from molinv.molecules.units import convert_energy
+
+#: The default ladder of training sizes (roughly 1-2-5 per decade; common practice, no source).
+DEFAULT_SIZES = (100, 200, 500, 1000, 2000, 5000, 10000, 20000, 50000, 100000)
+
+
+class CurveError(ValueError):
+    """Settings a learning curve cannot run with."""
+
+
+def size_ladder(n_available: int, sizes: Sequence[int] = DEFAULT_SIZES) -> list[int]:
+    """The sizes of ``sizes`` that fit into ``n_available`` training candidates."""
+    ladder = sorted({int(s) for s in sizes if 0 < int(s) <= n_available})
+    if not ladder:
+        raise CurveError(f"no training size in {list(sizes)} fits the {n_available} molecules left after the test set")
+    return ladder
+
+
+def test_split(n_molecules: int, test_size: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """(test, pool): a fixed random test set, drawn first, and everything else."""
+    if not 0 < test_size < n_molecules:
+        raise CurveError(f"test set of {test_size} cannot be drawn from {n_molecules} molecules")
+    order = np.random.default_rng([seed, 0]).permutation(n_molecules)
+    return np.sort(order[:test_size]), np.sort(order[test_size:])
+
+
+def training_draw(pool: np.ndarray, size: int, draw: int, seed: int) -> np.ndarray:
+    """A training set of ``size`` from ``pool``; depends only on (seed, size, draw)."""
+    rng = np.random.default_rng([seed, 1, size, draw])
+    return np.sort(rng.choice(pool, size=size, replace=False))
+
+
+def error_metrics(reference: np.ndarray, predicted: np.ndarray) -> dict[str, float]:
+    errors = np.asarray(predicted, float) - np.asarray(reference, float)
+    return {
+        "mae": float(np.mean(np.abs(errors))),
+        "rmse": float(np.sqrt(np.mean(errors**2))),
+        "max_error": float(np.max(np.abs(errors))),
+    }
+
+
+def _dataset_fingerprint(y: np.ndarray, test: np.ndarray) -> str:
+    digest = hashlib.sha256(np.ascontiguousarray(y, dtype=np.float64).tobytes())
+    digest.update(np.ascontiguousarray(test, dtype=np.int64).tobytes())
+    return digest.hexdigest()[:16]
+
+
+def _selected_hyperparameters(model) -> dict:
+    """What a cross-validated model chose, for the record (``best_params_`` if it has one)."""
+    chosen = getattr(model, "best_params_", None)
+    if chosen is None:
+        return {}
+    return {k: (v.item() if isinstance(v, np.generic) else v) for k, v in dict(chosen).items()}
+
+
+@dataclass
+class CurveRun:
+    """A learning-curve run folder: settings, test set, and one file pair per finished point."""
+
+    folder: Path
+    y: np.ndarray
+    test: np.ndarray
+    pool: np.ndarray
+    sizes: list[int]
+    n_draws: int
+    seed: int
+
+    @classmethod
+    def open(cls, folder, y, *, test_size: int, sizes=DEFAULT_SIZES, n_draws: int = 3, seed: int = 0) -> "CurveRun":
+        """Create the run folder, or reopen it when its settings match (else refuse)."""
+        folder = Path(folder)
+        y = np.asarray(y, dtype=float)
+        if y.ndim != 1 or not np.all(np.isfinite(y)):
+            raise CurveError("targets must be a 1-D array of finite energies")
+        if n_draws < 1:
+            raise CurveError("n_draws must be at least 1")
+        test, pool = test_split(len(y), test_size, seed)
+        ladder = size_ladder(len(pool), sizes)
+        settings = {"n_molecules": len(y), "test_size": int(test_size), "seed": int(seed),
+                    "dataset": _dataset_fingerprint(y, test)}
+        folder.mkdir(parents=True, exist_ok=True)
+        record = folder / "run.json"
+        if record.exists():
+            stored = json.loads(record.read_text())
+            if stored != settings:
+                raise CurveError(
+                    f"{folder} holds a run on other data or settings ({stored}); choose another folder"
+                )
+        else:
+            record.write_text(json.dumps(settings, indent=2))
+        return cls(folder, y, test, pool, ladder, int(n_draws), int(seed))
+
+    def _point_path(self, label: str, size: int, draw: int) -> Path:
+        safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in label)
+        return self.folder / "points" / safe / f"n{size:07d}-d{draw:02d}"
+
+    def run(self, X, model, label: str, progress: bool | None = None) -> pd.DataFrame:
+        """Fit ``clone(model)`` on every (size, draw) not yet done; return all points of ``label``.
+
+        ``X`` is anything the model takes that indexes by molecule (array,
+        CountedFeatures, AtomFeatures), in the order of the targets.
+        """
+        if len(X) != len(self.y):
+            raise CurveError(f"{len(X)} feature rows for {len(self.y)} targets")
+        jobs = [(size, draw) for size in self.sizes for draw in range(self.n_draws)]
+        todo = [(s, d) for s, d in jobs if not self._point_path(label, s, d).with_suffix(".json").exists()]
+        X_test, y_test = X[self.test], self.y[self.test]
+        for size, draw in tqdm(todo, desc=f"curve {label}", unit="fit", disable=None if progress is None else not progress):
+            train = training_draw(self.pool, size, draw, self.seed)
+            fitted = clone(model)
+            started = time.perf_counter()
+            fitted.fit(X[train], self.y[train])
+            fit_seconds = time.perf_counter() - started
+            predicted = np.asarray(fitted.predict(X_test), dtype=float)
+            point = {"label": label, "size": size, "draw": draw, **error_metrics(y_test, predicted),
+                     "fit_seconds": fit_seconds, "hyperparameters": _selected_hyperparameters(fitted)}
+            path = self._point_path(label, size, draw)
+            path.parent.mkdir(parents=True, exist_ok=True)
+            np.savez(path.with_suffix(".tmp.npz"), predicted=predicted)
+            os.replace(path.with_suffix(".tmp.npz"), path.with_suffix(".npz"))
+            # The .json is written last: its presence marks the point as finished.
+            path.with_suffix(".tmp").write_text(json.dumps(point))
+            os.replace(path.with_suffix(".tmp"), path.with_suffix(".json"))
+        return self.points(label)
+
+    def points(self, label: str | None = None) -> pd.DataFrame:
+        """Every finished point (errors in eV), optionally of one label."""
+        rows = [json.loads(p.read_text()) for p in sorted((self.folder / "points").glob("*/*.json"))]
+        table = pd.DataFrame(rows, columns=["label", "size", "draw", "mae", "rmse", "max_error", "fit_seconds",
+                                            "hyperparameters"])
+        return table if label is None else table[table["label"] == label].reset_index(drop=True)
+
+    def predictions(self, label: str, size: int, draw: int = 0) -> np.ndarray:
+        """Test-set predictions (eV) of one finished point, in the order of ``self.test``."""
+        with np.load(self._point_path(label, size, draw).with_suffix(".npz"), allow_pickle=False) as data:
+            return data["predicted"]
+
+
+def summarize(points: pd.DataFrame, unit: str = "kcal/mol") -> pd.DataFrame:
+    """Mean and spread over draws per (label, size), converted from eV to ``unit``."""
+    table = points.copy()
+    for column in ("mae", "rmse", "max_error"):
+        table[column] = convert_energy(table[column].to_numpy(), "eV", unit)
+    grouped = table.groupby(["label", "size"])
+    summary = grouped[["mae", "rmse", "max_error"]].agg(["mean", "std"])
+    summary.columns = [f"{metric}_{stat}" for metric, stat in summary.columns]
+    summary["n_draws"] = grouped.size()
+    return summary.reset_index()
+
+
+@dataclass(frozen=True)
+class PowerLaw:
+    """log MAE = intercept + slope * log N, fitted by least squares on every draw."""
+
+    slope: float
+    slope_std: float
+    intercept: float
+    sizes_used: tuple[int, ...]
+
+    def mae_at(self, size: float) -> float:
+        return math.exp(self.intercept + self.slope * math.log(size))
+
+    def size_for(self, target_mae: float) -> float:
+        """Training size where the extrapolated curve reaches ``target_mae`` (inf if it never does)."""
+        if self.slope >= 0:
+            return math.inf
+        return math.exp((math.log(target_mae) - self.intercept) / self.slope)
+
+    def size_range_for(self, target_mae: float) -> tuple[float, float]:
+        """The same size for slope -/+ one standard error: how uncertain the extrapolation is."""
+        sizes = []
+        for slope in (self.slope - self.slope_std, self.slope + self.slope_std):
+            # Pivot at the geometric centre of the fitted sizes, where the fit is best determined.
+            centre = float(np.mean(np.log(self.sizes_used)))
+            log_mae_centre = self.intercept + self.slope * centre
+            sizes.append(math.inf if slope >= 0 else math.exp(centre + (math.log(target_mae) - log_mae_centre) / slope))
+        return (min(sizes), max(sizes))
+
+
+def fit_power_law(points: pd.DataFrame, largest_sizes: int = 4) -> PowerLaw:
+    """Fit the ``largest_sizes`` largest sizes of one label's points.
+
+    Small training sets often fall faster or slower than the asymptotic rate, so
+    the extrapolation uses the tail of the curve (common practice, no source).
+    """
+    sizes = sorted(points["size"].unique())[-largest_sizes:]
+    tail = points[points["size"].isin(sizes)]
+    if len(sizes) < 2:
+        raise CurveError("a slope needs at least two training sizes")
+    x, y = np.log(tail["size"].to_numpy(float)), np.log(tail["mae"].to_numpy(float))
+    design = np.column_stack([np.ones_like(x), x])
+    coefficients, *_ = np.linalg.lstsq(design, y, rcond=None)
+    residuals = y - design @ coefficients
+    dof = max(len(x) - 2, 1)
+    covariance = np.linalg.inv(design.T @ design) * float(residuals @ residuals) / dof
+    return PowerLaw(float(coefficients[1]), float(math.sqrt(covariance[1, 1])), float(coefficients[0]),
+                    tuple(int(s) for s in sizes))
