@@ -123,6 +123,34 @@ def read_molecules(
     progress : bool or None
         tqdm progress bar over records (``None``: only on a terminal).
     """
+    result = ReadResult(source=str(path))
+    for item in iter_molecules(path, file_format=file_format, length=length, energy=energy, energy_keys=energy_keys,
+                               require_energy=require_energy, smiles_column=smiles_column, name_column=name_column,
+                               seed=seed, progress=progress):
+        (result.rejected if isinstance(item, Rejected) else result.molecules).append(item)
+    return result
+
+
+def iter_molecules(
+    path,
+    *,
+    file_format: str | None = None,
+    length: str = "Angstrom",
+    energy: str = "eV",
+    energy_keys: Sequence[str] = ("energy",),
+    require_energy: bool = False,
+    smiles_column: str | None = None,
+    name_column: str | None = None,
+    seed: int = EMBED_SEED,
+    progress: bool | None = None,
+    skip_records: int = 0,
+) -> Iterator[Atoms | Rejected]:
+    """Each record of a file in order, as an ``ase.Atoms`` or a :class:`Rejected`.
+
+    Same parameters as :func:`read_molecules`; records are built one at a time, so
+    memory does not grow with the file (CSV tables are read in blocks). The first
+    ``skip_records`` records are passed over without being built (resuming a run).
+    """
     path = Path(path)
     if not path.is_file():
         raise InputError(f"{path}: no such file")
@@ -138,16 +166,17 @@ def read_molecules(
         records = _csv_records(path, smiles_column, name_column, seed)
     else:
         raise InputError(f"{path}: unknown format {fmt!r}; choose xyz, sdf, smiles or csv")
-    result = ReadResult(source=str(path))
     for number, line, name, build in tqdm(records, desc=path.name, unit="rec", disable=_disabled(progress)):
+        if number <= skip_records:
+            continue
         try:
             atoms = build()
             _finish(atoms, units, name or f"{path.stem}:{number}", f"{path}:{number}")
         except MoleculeError as error:
-            result.rejected.append(Rejected(str(path), number, line, name, str(error)))
+            yield Rejected(str(path), number, line, name, str(error))
         else:
-            result.molecules.append(atoms)
-    return result
+            atoms.info["record"] = number
+            yield atoms
 
 
 def _disabled(progress):
@@ -195,7 +224,7 @@ Record = tuple[int, "int | None", "str | None", "callable"]
 
 def _xyz_records(path: Path) -> Iterator[Record]:
     """Frames of an XYZ file; framing by the atom-count line, parsing by ase.io."""
-    lines = path.read_text().splitlines()
+    lines = path.read_text().splitlines()  # XYZ framing looks ahead; SMILES and SDF stream
     position, number = 0, 0
     while position < len(lines):
         if not lines[position].strip():
@@ -262,14 +291,14 @@ def _failing(reason: str):
 
 def _sdf_records(path: Path) -> Iterator[Record]:
     """Records of an SDF/MOL file, each parsed by RDKit on its own for per-record reasons."""
-    text = path.read_text()
     block, start, number = [], 1, 0
-    for line_number, line in enumerate(text.splitlines(keepends=True), start=1):
-        block.append(line)
-        if line.strip() == "$$$$":
-            number += 1
-            yield number, start, _sdf_title(block), _sdf_builder("".join(block))
-            block, start = [], line_number + 1
+    with open(path) as handle:
+        for line_number, line in enumerate(handle, start=1):
+            block.append(line)
+            if line.strip() == "$$$$":
+                number += 1
+                yield number, start, _sdf_title(block), _sdf_builder("".join(block))
+                block, start = [], line_number + 1
     if any(line.strip() for line in block):
         number += 1
         yield number, start, _sdf_title(block), _sdf_builder("".join(block))
@@ -308,16 +337,17 @@ def _sdf_builder(block: str):
 def _smiles_records(path: Path, seed: int) -> Iterator[Record]:
     """One SMILES per line, optionally followed by a name; '#' starts a comment line."""
     number = 0
-    for line_number, line in enumerate(path.read_text().splitlines(), start=1):
-        stripped = line.strip()
-        if not stripped or stripped.startswith("#"):
-            continue
-        fields = stripped.split(None, 1)
-        if number == 0 and fields[0].lower() == "smiles":
-            continue
-        number += 1
-        name = fields[1].strip() if len(fields) > 1 else None
-        yield number, line_number, name, _smiles_builder(fields[0], seed, {})
+    with open(path) as handle:
+        for line_number, line in enumerate(handle, start=1):
+            stripped = line.strip()
+            if not stripped or stripped.startswith("#"):
+                continue
+            fields = stripped.split(None, 1)
+            if number == 0 and fields[0].lower() == "smiles":
+                continue
+            number += 1
+            name = fields[1].strip() if len(fields) > 1 else None
+            yield number, line_number, name, _smiles_builder(fields[0], seed, {})
 
 
 def _smiles_builder(smiles: str, seed: int, properties: dict):
@@ -342,26 +372,45 @@ def _find_column(columns: Iterable[str], wanted: str | None, defaults: tuple[str
     return None
 
 
-def _csv_records(path: Path, smiles_column: str | None, name_column: str | None, seed: int) -> Iterator[Record]:
-    """Rows of a CSV table: a SMILES column, an optional name column, property columns."""
+def _csv_records(path: Path, smiles_column: str | None, name_column: str | None, seed: int,
+                 block_rows: int = 10000) -> Iterator[Record]:
+    """Rows of a CSV table: a SMILES column, an optional name column, property columns.
+
+    Read in blocks of ``block_rows`` so that memory stays flat for long tables.
+    """
     try:
-        table = pd.read_csv(path, dtype=str, keep_default_na=False)
+        blocks = pd.read_csv(path, dtype=str, keep_default_na=False, chunksize=block_rows)
+        first = next(blocks, None)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as error:
         raise InputError(f"{path}: cannot read as CSV: {error}") from None
-    smiles_key = _find_column(table.columns, smiles_column, ("smiles",), path)
+    if first is None:
+        return
+    columns = list(first.columns)
+    smiles_key = _find_column(columns, smiles_column, ("smiles",), path)
     if smiles_key is None:
-        raise InputError(f"{path}: no SMILES column; name one with smiles_column (columns: {', '.join(table.columns)})")
-    name_key = _find_column(table.columns, name_column, ("name", "id"), path)
-    property_keys = [c for c in table.columns if c not in (smiles_key, name_key)]
-    for row_number, row in enumerate(table.itertuples(index=False), start=1):
-        values = dict(zip(table.columns, row))
-        properties = {}
-        for key in property_keys:
-            text = values[key].strip()
-            if text == "":
-                continue  # an empty cell is a missing value; require_energy reports it when it matters
-            number = _as_number(text)
-            properties[key] = number if number is not None else text
-        name = values[name_key].strip() if name_key and values[name_key].strip() else None
-        # Line numbers count the header as line 1 (quoted newlines inside cells would shift them).
-        yield row_number, row_number + 1, name, _smiles_builder(values[smiles_key], seed, properties)
+        raise InputError(f"{path}: no SMILES column; name one with smiles_column (columns: {', '.join(columns)})")
+    name_key = _find_column(columns, name_column, ("name", "id"), path)
+    property_keys = [c for c in columns if c not in (smiles_key, name_key)]
+    row_number = 0
+
+    def all_blocks():
+        yield first
+        try:
+            yield from blocks
+        except (pd.errors.ParserError, UnicodeDecodeError) as error:
+            raise InputError(f"{path}: cannot read as CSV after row {row_number}: {error}") from None
+
+    for block in all_blocks():
+        for row in block.itertuples(index=False):
+            row_number += 1
+            values = dict(zip(columns, row))
+            properties = {}
+            for key in property_keys:
+                text = values[key].strip()
+                if text == "":
+                    continue  # an empty cell is a missing value; require_energy reports it when it matters
+                number = _as_number(text)
+                properties[key] = number if number is not None else text
+            name = values[name_key].strip() if name_key and values[name_key].strip() else None
+            # Line numbers count the header as line 1 (quoted newlines inside cells would shift them).
+            yield row_number, row_number + 1, name, _smiles_builder(values[smiles_key], seed, properties)

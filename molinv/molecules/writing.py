@@ -20,7 +20,7 @@ from .reading import InputError, detect_format
 from .units import ENERGY_UNITS, LENGTH_UNITS, energy_unit, length_unit
 
 # Keys molinv adds on reading; not written back as properties.
-_BOOKKEEPING = {"source", "geometry_source"}
+_BOOKKEEPING = {"source", "geometry_source", "record"}
 
 
 def _scalar_properties(atoms: Atoms, energy_keys: Sequence[str], energy_factor: float) -> dict:
