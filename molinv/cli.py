@@ -26,29 +26,83 @@ class CommandError(Exception):
 
 
 def add_input_options(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("input", type=Path, help="molecules: .xyz/.extxyz, .sdf/.mol, .smi (SMILES name), .csv (SMILES column)")
+    parser.add_argument("input", help="molecules: .xyz/.extxyz, .sdf/.mol, .smi (SMILES name), .csv (SMILES column); "
+                        "or qm9:N[:SEED] for a random QM9 sample (qm9 alone: all of it)")
     parser.add_argument("--format", dest="file_format", choices=["xyz", "sdf", "smiles", "csv"], help="override the guess from the file suffix")
     parser.add_argument("--length-unit", default="Angstrom", help="unit of coordinates in the file (default Angstrom)")
     parser.add_argument("--energy-unit", default="eV", help="unit of energies in the file (default eV)")
-    parser.add_argument("--energy-key", default="energy", help="property holding the energy (default 'energy')")
+    parser.add_argument("--energy-key", default=None,
+                        help="property holding the energy (default 'energy'; for QM9 'atomization_energy', "
+                             "positive, from U0; also U0, U, H, G, ZPVE, HOMO, LUMO, gap)")
     parser.add_argument("--smiles-column", help="CSV column with SMILES (default: a column named 'smiles')")
     parser.add_argument("--name-column", help="CSV column with names (default: 'name' or 'id')")
 
 
-def read_input(args, require_energy: bool):
-    from .molecules import read_molecules
+def parse_qm9_source(text: str):
+    """'qm9', 'qm9:N' or 'qm9:N:SEED' -> (n or None, seed); None when not a QM9 source."""
+    parts = text.split(":")
+    if parts[0].lower() != "qm9":
+        return None
+    try:
+        n = int(parts[1]) if len(parts) > 1 and parts[1] else None
+        seed = int(parts[2]) if len(parts) > 2 else 0
+    except ValueError:
+        raise CommandError(f"cannot read {text!r}: write qm9, qm9:N or qm9:N:SEED") from None
+    return n, seed
 
+
+def energy_key(args) -> str:
+    if args.energy_key:
+        return args.energy_key
+    return "atomization_energy" if parse_qm9_source(args.input) else "energy"
+
+
+def read_input(args, require_energy: bool):
+    """Molecules of the input argument, as a ReadResult (energies in eV)."""
+    from .molecules import ReadResult, read_molecules
+
+    qm9 = parse_qm9_source(args.input)
+    if qm9 is not None:
+        from .molecules.qm9 import CITATION, load_qm9
+
+        molecules = load_qm9(n=qm9[0], seed=qm9[1])
+        key = energy_key(args)
+        if key not in molecules[0].info:
+            raise CommandError(f"QM9 has no property {key!r}")
+        for atoms in molecules:
+            atoms.info["energy"] = atoms.info[key]
+        return ReadResult(source=f"QM9 ({CITATION})", molecules=molecules)
     return read_molecules(
-        args.input,
+        Path(args.input),
         file_format=args.file_format,
         length=args.length_unit,
         energy=args.energy_unit,
-        energy_keys=(args.energy_key,),
+        energy_keys=(energy_key(args),),
         require_energy=require_energy,
         smiles_column=args.smiles_column,
         name_column=args.name_column,
         progress=True,
     )
+
+
+def report_rejected(result, limit: int = 10) -> None:
+    print(result.summary())
+    for rejected in result.rejected[:limit]:
+        print(f"  rejected: {rejected}")
+    if len(result.rejected) > limit:
+        print(f"  ... and {len(result.rejected) - limit} more (use 'molinv check --rejected-out' for all)")
+
+
+def labelled(args):
+    """Molecules with energies, and the energies (eV) in the 'energy' property."""
+    import numpy as np
+
+    result = read_input(args, require_energy=True)
+    report_rejected(result)
+    if len(result.molecules) < 10:
+        raise CommandError(f"{len(result.molecules)} usable labelled molecules; at least 10 are needed")
+    key = "energy" if parse_qm9_source(args.input) else energy_key(args)
+    return result.molecules, np.array([atoms.info[key] for atoms in result.molecules])
 
 
 def write_rejected(rejected, path: Path) -> None:
@@ -60,13 +114,191 @@ def write_rejected(rejected, path: Path) -> None:
 
 def run_check(args) -> int:
     result = read_input(args, require_energy=args.require_energy)
-    print(result.summary())
-    for rejected in result.rejected:
-        print(f"  rejected: {rejected}")
+    report_rejected(result, limit=len(result.rejected))
     if args.rejected_out:
         write_rejected(result.rejected, args.rejected_out)
         print(f"rejected records written to {args.rejected_out}")
     return 0 if result.molecules else 2
+
+
+def add_recipe_options(parser, several: bool = False) -> None:
+    from .recipes import DESCRIPTORS, MODEL_HELP
+
+    described = "; ".join(f"{k}: {v[3]}" for k, v in DESCRIPTORS.items())
+    if several:
+        parser.add_argument("--descriptor", action="append", choices=list(DESCRIPTORS), metavar="NAME",
+                            help=f"descriptor, repeat for several curves side by side ({described})")
+        parser.add_argument("--model", action="append", choices=list(MODEL_HELP), metavar="NAME",
+                            help="model, one per --descriptor or one for all (" + "; ".join(f"{k}: {v}" for k, v in MODEL_HELP.items()) + ")")
+    else:
+        parser.add_argument("--descriptor", default="atoms", choices=list(DESCRIPTORS), metavar="NAME", help=described)
+        parser.add_argument("--model", default="kernel", choices=list(MODEL_HELP), metavar="NAME",
+                            help="; ".join(f"{k}: {v}" for k, v in MODEL_HELP.items()))
+    parser.add_argument("--cache", type=Path, default=None,
+                        help="folder of cached descriptor values (default: none; reruns then recompute)")
+    parser.add_argument("--jobs", type=int, default=1, help="worker processes for describing molecules")
+
+
+def feature_store(args):
+    from .descriptors.store import FeatureStore
+
+    return FeatureStore(args.cache) if args.cache else None
+
+
+def energy_model(descriptor_name: str, model_name: str, args):
+    from .recipes import EnergyModel, make_descriptor, make_regressor
+
+    descriptor = make_descriptor(descriptor_name, n_jobs=args.jobs, progress=True)
+    return EnergyModel(descriptor, make_regressor(model_name, descriptor.per_atom, progress=True), feature_store(args))
+
+
+def run_describe(args) -> int:
+    import json
+
+    import numpy as np
+
+    from .recipes import describe, make_descriptor
+
+    result = read_input(args, require_energy=False)
+    report_rejected(result)
+    descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, progress=True).fit(result.molecules)
+    features = describe(descriptor, result.molecules, feature_store(args))
+    arrays = {"names": np.array([str(a.info["name"]) for a in result.molecules]),
+              "settings_json": np.array(json.dumps(descriptor.settings()))}
+    if descriptor.per_atom:
+        arrays.update(values=features.values, numbers=features.numbers, offsets=features.offsets)
+    else:
+        arrays["values"] = features
+    np.savez(args.out, **arrays)
+    print(f"{len(result.molecules)} molecules described with {args.descriptor} ({features.shape[1]} numbers each"
+          f"{' per atom' if descriptor.per_atom else ''}) -> {args.out}")
+    return 0
+
+
+def run_fit(args) -> int:
+    from .molecules.units import convert_energy
+
+    molecules, energies = labelled(args)
+    model = energy_model(args.descriptor, args.model, args).fit(molecules, energies)
+    path = model.save(args.out, target=energy_key(args),
+                      training={"source": str(args.input), "n_molecules": len(molecules)})
+    print(f"model fitted on {len(molecules)} molecules -> {path}")
+    if model.best_params_:
+        print("chosen by cross-validation: " + ", ".join(f"{k}={v:g}" for k, v in model.best_params_.items()))
+    spread = convert_energy(float(energies.std()), "eV", "kcal/mol")
+    print(f"training energies spread (standard deviation): {spread:.2f} kcal/mol")
+    return 0
+
+
+def run_predict(args) -> int:
+    from .recipes import EnergyModel
+    from .screening import CAUTION, prediction_table
+
+    model, metadata = EnergyModel.load(args.model_file)
+    result = read_input(args, require_energy=False)
+    table = prediction_table(model, result.molecules, result.rejected, unit=args.unit, target=metadata["target"])
+    table.to_csv(args.out, index=False)
+    counts = table["status"].value_counts().to_dict()
+    print(f"{len(table)} rows -> {args.out}: " + ", ".join(f"{n} {s}" for s, n in counts.items()))
+    print(f"Caution: {CAUTION}")
+    return 0
+
+
+def run_curve(args) -> int:
+    from .evaluation import CurveRun, write_report
+    from .molecules.qm9 import CITATION
+    from .recipes import model_inputs
+
+    descriptors = args.descriptor or ["atoms"]
+    models = args.model or ["kernel"]
+    if len(models) not in (1, len(descriptors)):
+        raise CommandError("give one --model for all descriptors, or one per --descriptor")
+    models = models * len(descriptors) if len(models) == 1 else models
+    molecules, energies = labelled(args)
+    run = CurveRun.open(args.out / "run", energies, test_size=args.test_size, sizes=args.sizes,
+                        n_draws=args.draws, seed=args.seed)
+    for descriptor_name, model_name in zip(descriptors, models):
+        model = energy_model(descriptor_name, model_name, args)
+        # The descriptor is fitted (element set, padding) on all molecules, labels unseen;
+        # the regressor is fitted on each training draw only.
+        inputs = model_inputs(model.descriptor.fit(molecules), molecules, model.feature_store)
+        run.run(inputs, model.regressor, f"{descriptor_name} + {model_name}", progress=True)
+
+    page = write_report(run, args.out, unit=args.unit, target=args.target,
+                        n_atoms=[len(a) for a in molecules],
+                        settings={"data": args.input, "energy": energy_key(args), "test molecules": args.test_size,
+                                  "draws per size": args.draws, "seed": args.seed, "descriptors": ", ".join(descriptors),
+                                  "models": ", ".join(models)},
+                        data_citation=CITATION if parse_qm9_source(args.input) else str(args.input))
+    print(f"report: {page}")
+    return 0
+
+
+def run_screen(args) -> int:
+    import hashlib
+
+    from .recipes import EnergyModel
+    from .screening.screen import screen_file
+
+    model, metadata = EnergyModel.load(args.model_file)
+    if parse_qm9_source(args.input):
+        raise CommandError("screen reads candidate files (.smi, .csv, .sdf, .xyz); use 'predict' for QM9 samples")
+    options = {"file_format": args.file_format, "length": args.length_unit, "energy": args.energy_unit,
+               "smiles_column": args.smiles_column, "name_column": args.name_column}
+    summary = screen_file(model, args.input, args.out, model_fingerprint=hashlib.sha256(args.model_file.read_bytes()).hexdigest(),
+                          target=metadata["target"], unit=args.unit, chunk_size=args.chunk_size, read_options=options,
+                          parquet=args.parquet, progress=True)
+    print(summary.text(args.unit))
+    return 0
+
+
+DEMO_DATA = Path(__file__).resolve().parent.parent / "data_demo" / "candidates.csv"
+
+
+def run_demo(args) -> int:
+    """Learning curve on a QM9 sample, a model fitted on it, and the demo candidates ranked."""
+    from .evaluation import CurveRun, write_report
+    from .molecules import read_molecules
+    from .molecules.qm9 import CITATION, load_qm9
+    from .recipes import EnergyModel, make_descriptor, make_regressor, model_inputs
+    from .screening import CAUTION, prediction_table
+
+    candidates_file = args.candidates
+    if not candidates_file.is_file():
+        raise CommandError(f"{candidates_file}: demo candidates not found (run from the molinv source folder "
+                           "or give --candidates)")
+    out = args.out
+    print(f"1/3 loading {args.molecules} QM9 molecules ({CITATION})")
+    molecules = load_qm9(n=args.molecules, seed=args.seed)
+    energies = [atoms.info["atomization_energy"] for atoms in molecules]
+    run = CurveRun.open(out / "run", energies, test_size=args.test_size, sizes=args.sizes, n_draws=2, seed=args.seed)
+    print(f"2/3 learning curves on atomization energy (from U0), test set of {args.test_size} molecules")
+    for name in ("atoms", "coulomb"):
+        descriptor = make_descriptor(name, progress=True).fit(molecules)
+        run.run(model_inputs(descriptor, molecules), make_regressor("kernel", descriptor.per_atom, progress=True),
+                f"{name} + kernel", progress=True)
+    page = write_report(run, out, unit="kcal/mol", target=1.0, n_atoms=[len(a) for a in molecules],
+                        settings={"data": f"QM9 sample of {args.molecules} (seed {args.seed})",
+                                  "energy": "atomization energy from U0", "test molecules": args.test_size},
+                        data_citation=CITATION, title="molinv demo: learning curves on QM9")
+    largest = max(run.sizes)
+    print(f"3/3 fitting atoms + kernel on {largest} QM9 molecules and ranking {candidates_file.name}")
+    train = [molecules[i] for i in run.pool[:largest]]
+    model = EnergyModel(make_descriptor("atoms"), make_regressor("kernel", True, progress=True))
+    model.fit(train, [atoms.info["atomization_energy"] for atoms in train])
+    model.save(out / "model.npz", target="atomization_energy", training={"source": "QM9", "n_molecules": largest})
+    read = read_molecules(candidates_file)
+    table = prediction_table(model, read.molecules, read.rejected, unit="kcal/mol", target="atomization_energy")
+    table.to_csv(out / "candidates_ranked.csv", index=False)
+    shown = ["name", "formula", "atomization_energy_kcal/mol", "std_kcal/mol",
+             "atomization_energy_per_atom_kcal/mol", "relative_to_best_isomer_kcal/mol", "status"]
+    print(table[shown].head(8).to_string(index=False, float_format=lambda v: f"{v:.1f}"))
+    counts = table["status"].value_counts().to_dict()
+    print("candidates: " + ", ".join(f"{n} {s}" for s, n in counts.items()))
+    print(f"report: {page}")
+    print(f"ranked candidates: {out / 'candidates_ranked.csv'}")
+    print(f"Caution: {CAUTION}")
+    return 0
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -84,17 +316,89 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument("--require-energy", action="store_true", help="reject records without a numeric energy")
     check.add_argument("--rejected-out", type=Path, help="write the rejected records to this CSV")
     check.set_defaults(run=run_check)
+
+    describe = verbs.add_parser("describe", help="compute a descriptor for every molecule into a .npz feature file",
+                                description="Describe molecules by invariant numbers. " + UNITS_HELP)
+    add_input_options(describe)
+    add_recipe_options(describe)
+    describe.add_argument("--out", type=Path, required=True, help="feature file to write (.npz)")
+    describe.set_defaults(run=run_describe)
+
+    fit = verbs.add_parser("fit", help="fit an energy model on labelled molecules into a model file",
+                           description="Fit descriptor + regressor on labelled molecules. Energies are converted to "
+                                       "eV on reading. " + UNITS_HELP)
+    add_input_options(fit)
+    add_recipe_options(fit)
+    fit.add_argument("--out", type=Path, required=True, help="model file to write (.npz; holds no pickle)")
+    fit.set_defaults(run=run_fit)
+
+    predict = verbs.add_parser("predict", help="predict energies of new molecules with a model file",
+                               description="Predict with a model file; every input row appears once in the output, "
+                                           "with its status. " + UNITS_HELP)
+    predict.add_argument("model_file", type=Path, help="model file written by 'molinv fit'")
+    add_input_options(predict)
+    predict.add_argument("--unit", default="kcal/mol", help="energy unit of the output table (default kcal/mol)")
+    predict.add_argument("--out", type=Path, required=True, help="table to write (.csv)")
+    predict.set_defaults(run=run_predict)
+
+    screen = verbs.add_parser("screen", help="rank a candidate file of any size, in resumable chunks",
+                              description="Predict every candidate with a model file, in chunks written as they "
+                                          "finish (a rerun resumes); writes ranked.csv and summary.txt. Each row "
+                                          "has a status: ok, flagged (unlike the training set, or repeated name) or "
+                                          "failed (with the reason). " + UNITS_HELP)
+    screen.add_argument("model_file", type=Path, help="model file written by 'molinv fit'")
+    add_input_options(screen)
+    screen.add_argument("--unit", default="kcal/mol", help="energy unit of the output (default kcal/mol)")
+    screen.add_argument("--chunk-size", type=int, default=1000, help="candidates per chunk (default 1000)")
+    screen.add_argument("--parquet", action="store_true", help="also write ranked.parquet (needs pyarrow)")
+    screen.add_argument("--out", type=Path, required=True, help="output folder (also holds the finished chunks)")
+    screen.set_defaults(run=run_screen)
+
+    curve = verbs.add_parser("curve", help="learning curve: test error against training-set size, with a report",
+                             description="Draw a fixed test set, fit on growing training sets (hyperparameters by "
+                                         "cross-validation inside each), and write CSV, plots and report.html. "
+                                         "Interrupted runs resume from the finished points. " + UNITS_HELP)
+    add_input_options(curve)
+    add_recipe_options(curve, several=True)
+    curve.add_argument("--sizes", type=int, nargs="+", default=[100, 200, 500, 1000, 2000, 5000, 10000, 20000],
+                       help="training sizes (those that fit beside the test set are used)")
+    curve.add_argument("--draws", type=int, default=3, help="random training sets per size (default 3)")
+    curve.add_argument("--test-size", type=int, default=1000, help="held-out test molecules (default 1000)")
+    curve.add_argument("--seed", type=int, default=0, help="seed of the test set and training draws")
+    curve.add_argument("--target", type=float, default=1.0, help="accuracy wanted, in --unit (default 1.0)")
+    curve.add_argument("--unit", default="kcal/mol", help="energy unit of the report (default kcal/mol)")
+    curve.add_argument("--out", type=Path, required=True, help="report folder (also holds the resumable run)")
+    curve.set_defaults(run=run_curve)
+
+    demo = verbs.add_parser("demo", help="run the main job on the bundled demo data and say where the report is",
+                            description="Learning curves on a QM9 sample, then the demo candidates ranked by a model "
+                                        "trained on it. Energies in kcal/mol. A few minutes on 2 cores.")
+    demo.add_argument("--candidates", type=Path, default=DEMO_DATA, help="candidate list (default: the bundled one)")
+    demo.add_argument("--molecules", type=int, default=1500, help="QM9 molecules to sample (default 1500)")
+    demo.add_argument("--test-size", type=int, default=500, help="held-out test molecules (default 500)")
+    demo.add_argument("--sizes", type=int, nargs="+", default=[100, 200, 500], help="training sizes")
+    demo.add_argument("--seed", type=int, default=0, help="seed of the QM9 sample and the splits")
+    demo.add_argument("--out", type=Path, default=Path("molinv-demo"), help="output folder (default ./molinv-demo)")
+    demo.set_defaults(run=run_demo)
     return parser
 
 
 def main(argv=None) -> int:
+    from .descriptors.base import DescriptorError
+    from .evaluation import CurveError
+    from .models.inputs import ModelInputError
+    from .models.modelfile import ModelFileError
+    from .molecules.qm9 import Qm9Unavailable
     from .molecules.reading import InputError
     from .molecules.units import UnitError
+    from .recipes import RecipeError
+    from .screening.screen import ScreenError
 
     args = build_parser().parse_args(argv)
     try:
         return args.run(args)
-    except (CommandError, InputError, UnitError) as error:
+    except (CommandError, InputError, UnitError, RecipeError, DescriptorError, ModelInputError, ModelFileError,
+            CurveError, Qm9Unavailable, ScreenError) as error:
         print(f"molinv {args.verb}: error: {error}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

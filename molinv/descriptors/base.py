@@ -64,13 +64,16 @@ class AtomFeatures:
     """One feature vector per atom, for many molecules, stored flat.
 
     ``values[offsets[i]:offsets[i+1]]`` are the vectors of molecule ``i``'s atoms
-    and ``numbers`` the matching atomic numbers. Indexing with an integer array
-    or slice selects molecules, so scikit-learn's cross-validation can split it.
+    and ``numbers`` the matching atomic numbers. ``elements`` is the element set
+    of the descriptor that made them (a subset of molecules may lack some).
+    Indexing with an integer array or slice selects molecules, so scikit-learn's
+    cross-validation can split it.
     """
 
     values: np.ndarray
     numbers: np.ndarray
     offsets: np.ndarray
+    elements: tuple[int, ...] | None = None
 
     def __len__(self) -> int:
         return len(self.offsets) - 1
@@ -90,15 +93,17 @@ class AtomFeatures:
         starts, stops = self.offsets[picked], self.offsets[picked + 1]
         rows = np.concatenate([np.arange(a, b) for a, b in zip(starts, stops)]) if len(picked) else np.zeros(0, int)
         offsets = np.concatenate([[0], np.cumsum(stops - starts)])
-        return AtomFeatures(self.values[rows], self.numbers[rows], offsets)
+        return AtomFeatures(self.values[rows], self.numbers[rows], offsets, self.elements)
 
     @classmethod
-    def from_blocks(cls, blocks: Sequence[np.ndarray], numbers: Sequence[np.ndarray]) -> "AtomFeatures":
+    def from_blocks(cls, blocks: Sequence[np.ndarray], numbers: Sequence[np.ndarray],
+                    elements: tuple[int, ...] | None = None) -> "AtomFeatures":
         sizes = [len(b) for b in blocks]
         return cls(
             np.concatenate(blocks, axis=0).astype(float, copy=False),
             np.concatenate(numbers).astype(int, copy=False),
             np.concatenate([[0], np.cumsum(sizes)]).astype(int),
+            elements,
         )
 
 
@@ -173,7 +178,7 @@ class MoleculeDescriptor(TransformerMixin, BaseEstimator):
                     results.extend(rows)
                     progress.update(len(chunk))
         if self.per_atom:
-            return AtomFeatures.from_blocks(results, [atoms.numbers for atoms in molecules])
+            return AtomFeatures.from_blocks(results, [atoms.numbers for atoms in molecules], self.elements_)
         return np.vstack(results).astype(float, copy=False)
 
     def _progress_disabled(self):
@@ -189,6 +194,36 @@ class MoleculeDescriptor(TransformerMixin, BaseEstimator):
     def _fitted_state(self) -> dict:
         """Data-dependent fitted values to store beside the parameters; default none."""
         return {}
+
+    def _restore_fitted_state(self, state: dict) -> None:
+        """Inverse of :meth:`_fitted_state`; by default the features depend on settings only."""
+        self._fit_features([])
+
+
+def _subclasses(cls) -> list[type]:
+    found = []
+    for sub in cls.__subclasses__():
+        found += [sub, *_subclasses(sub)]
+    return found
+
+
+def descriptor_from_settings(settings: dict) -> MoleculeDescriptor:
+    """Rebuild a fitted descriptor from :meth:`MoleculeDescriptor.settings` (as stored in a model file)."""
+    import molinv.descriptors  # noqa: F401  (registers every descriptor class)
+
+    classes = {cls.__name__: cls for cls in _subclasses(MoleculeDescriptor)}
+    name = settings.get("descriptor")
+    if name not in classes:
+        raise DescriptorError(f"unknown descriptor {name!r}; this molinv knows {', '.join(sorted(classes))}")
+    params = dict(settings["params"])
+    try:
+        descriptor = classes[name](**params)
+    except TypeError as error:
+        raise DescriptorError(f"settings do not fit {name} in this molinv: {error}") from None
+    descriptor.elements_ = element_numbers(params["elements"])
+    descriptor._check_settings()
+    descriptor._restore_fitted_state({k: v for k, v in settings.items() if k not in ("descriptor", "params")})
+    return descriptor
 
 
 def _jsonable(value):

@@ -112,5 +112,6 @@ class FeatureStore:
                         cached[key] = (row,)
                 bar.update(len(chunk))
         if per_atom:
-            return AtomFeatures.from_blocks([cached[k][0] for k in keys], [cached[k][1] for k in keys])
+            return AtomFeatures.from_blocks([cached[k][0] for k in keys], [cached[k][1] for k in keys],
+                                            descriptor.elements_)
         return np.vstack([cached[k][0] for k in keys])

@@ -1,0 +1,444 @@
+"""Kernel ridge regression of energies, with fixed or cross-validated hyperparameters.
+
+Fit: dual coefficients :math:`\\alpha = (K + \\lambda I)^{-1} y` for the residual
+``y`` left by the baseline; prediction :math:`f(x) = k_x^T \\alpha` plus the
+baseline (Rupp et al., Phys. Rev. Lett. 108, 058301, 2012; Hansen et al.,
+J. Chem. Theory Comput. 9, 3404, 2013).
+
+Uncertainty, in the Gaussian-process reading of kernel ridge (Rasmussen and
+Williams, Gaussian Processes for Machine Learning, MIT Press 2006, eqs. 2.26 and
+5.12): the predictive variance of a new energy is
+
+.. math::  \\sigma^2(x) = a^2 \\left(k(x, x) - k_x^T (K + \\lambda I)^{-1} k_x + \\lambda\\right)
+
+where the amplitude :math:`a` is calibrated on the exact leave-one-out residuals
+:math:`r_i = \\alpha_i / [C^{-1}]_{ii}` with variances :math:`1/[C^{-1}]_{ii}`
+(:math:`C = K + \\lambda I`): :math:`a` is chosen so that the central normal
+interval of probability ``interval_level`` covers that fraction of the
+leave-one-out residuals. The baseline is held fixed in the leave-one-out step.
+
+Cross-validation (:class:`KernelRidgeCV`, :class:`AtomwiseKernelRidgeCV`)
+shares the costly parts: distances once (once in all when no per-fold scaling,
+else once per fold) reused for every width; per width, either one Cholesky
+factorisation per regularisation value or one eigendecomposition
+:math:`K = V \\Lambda V^T` reused for all of them,
+:math:`\\alpha(\\lambda) = V (\\Lambda + \\lambda)^{-1} V^T y`, whichever is cheaper
+(:func:`choose_solver`).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.linalg
+from scipy.stats import norm
+from sklearn.base import BaseEstimator, RegressorMixin
+from sklearn.model_selection import KFold
+from sklearn.utils.validation import check_is_fitted
+from tqdm.auto import tqdm
+
+from molinv.descriptors.base import AtomFeatures
+from molinv.models.baseline import BaselineMixin, fit_baseline, predict_baseline
+from molinv.models.inputs import (
+    CountedFeatures,
+    ModelInputError,
+    atom_features,
+    global_values,
+    targets,
+    training_fingerprint,
+)
+from molinv.models.kernels import AtomwiseKernel, GlobalKernel, check_widths
+
+#: Cost of a symmetric eigendecomposition in units of one Cholesky factorisation of
+#: the same matrix. A prototype measured 7-18x (LAPACK syevd vs potrf, n = 1,000-4,000);
+#: 12 is the middle of that range. With fewer regularisation values per width than
+#: this, Cholesky per value is cheaper.
+EIG_TO_CHOLESKY_COST = 12.0
+SOLVERS = ("auto", "cholesky", "eigen")
+
+
+def choose_solver(solver: str, n_regularizations: int, eig_to_cholesky_cost: float = EIG_TO_CHOLESKY_COST) -> str:
+    """``"cholesky"`` or ``"eigen"``: resolve ``"auto"`` by comparing ``n_regularizations`` Cholesky
+    factorisations with one eigendecomposition."""
+    if solver not in SOLVERS:
+        raise ModelInputError(f"solver must be one of {SOLVERS}, got {solver!r}")
+    if solver != "auto":
+        return solver
+    return "eigen" if n_regularizations > eig_to_cholesky_cost else "cholesky"
+
+
+def check_regularizations(values) -> np.ndarray:
+    values = np.atleast_1d(np.asarray(values, dtype=float))
+    if values.ndim != 1 or len(values) == 0 or not np.all(np.isfinite(values)) or np.any(values <= 0):
+        raise ModelInputError(f"regularisation values must be positive finite numbers, got {values}")
+    return values
+
+
+def solve_regularized(kernel: np.ndarray, y: np.ndarray, regularization: float) -> np.ndarray:
+    """``(K + lambda I)^{-1} y`` by Cholesky; least squares if ``K + lambda I`` is not positive definite
+    (the same fallback as :class:`sklearn.kernel_ridge.KernelRidge`)."""
+    system = with_added_diagonal(kernel, regularization)
+    try:
+        factor = scipy.linalg.cho_factor(system, lower=True, overwrite_a=True, check_finite=False)
+    except np.linalg.LinAlgError:
+        return scipy.linalg.lstsq(with_added_diagonal(kernel, regularization), y)[0]
+    return scipy.linalg.cho_solve(factor, y, check_finite=False)
+
+
+def with_added_diagonal(matrix: np.ndarray, value: float) -> np.ndarray:
+    """A Fortran-ordered copy of ``matrix`` with ``value`` added to its diagonal (LAPACK then works in place)."""
+    result = np.array(matrix, dtype=float, order="F")
+    result.flat[:: len(result) + 1] += value
+    return result
+
+
+def validation_errors(kernel_train, kernel_val, y_train, y_val, regularizations, solver: str) -> np.ndarray:
+    """Mean absolute validation error for each regularisation value at one width."""
+    if solver == "eigen":
+        eigenvalues, vectors = scipy.linalg.eigh(kernel_train, check_finite=False)
+        projected = vectors.T @ y_train
+        predictions = (kernel_val @ vectors) @ (projected[:, None] / (eigenvalues[:, None] + regularizations[None, :]))
+        return np.mean(np.abs(predictions - y_val[:, None]), axis=0)
+    return np.array(
+        [np.mean(np.abs(kernel_val @ solve_regularized(kernel_train, y_train, reg) - y_val)) for reg in regularizations]
+    )
+
+
+def interval_scale(residuals: np.ndarray, variances: np.ndarray, level: float) -> float:
+    """Amplitude ``a`` such that ``|r| <= a z sqrt(var)`` for a fraction ``level`` of held-out residuals,
+    ``z`` being the normal quantile of the central ``level`` interval."""
+    ratios = np.abs(residuals) / np.sqrt(np.maximum(variances, np.finfo(float).tiny))
+    return float(np.quantile(ratios, level) / norm.ppf(0.5 + level / 2))
+
+
+def check_interval_level(level) -> float:
+    level = float(level)
+    if not 0.0 < level < 1.0:
+        raise ModelInputError(f"interval_level must lie strictly between 0 and 1, got {level}")
+    return level
+
+
+def forget_uncertainty(model) -> None:
+    """Drop the uncertainty state of an earlier fit, so a refit without it cannot use stale arrays."""
+    for name in ("cholesky_", "std_scale_"):
+        if hasattr(model, name):
+            delattr(model, name)
+
+
+def fit_scaling(values: np.ndarray, scale: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Per-feature mean and standard deviation (1 where constant); identity when ``scale`` is false."""
+    if not scale:
+        return np.zeros(values.shape[1]), np.ones(values.shape[1])
+    spread = values.std(axis=0)
+    return values.mean(axis=0), np.where(spread > 0, spread, 1.0)
+
+
+class _KernelRidgeBase(BaselineMixin, RegressorMixin, BaseEstimator):
+    """Shared fit-with-fixed-hyperparameters and predict. Subclasses define the kernel and features."""
+
+    def _fit_fixed(self, X, y, width: float, regularization: float, kernel=None):
+        """Fit at one width and regularisation; ``kernel``, if given, is the training kernel already computed."""
+        y = targets(y, len(X))
+        features = self._fit_features(X)
+        residual = self._fit_baseline(X, y)
+        if kernel is None:
+            kernel = self._make_kernel().table(features, features, [width]).matrix(0)
+        try:
+            lower = scipy.linalg.cholesky(
+                with_added_diagonal(kernel, regularization), lower=True, overwrite_a=True, check_finite=False
+            )
+        except np.linalg.LinAlgError as error:
+            raise ModelInputError(
+                f"K + lambda I is not positive definite at width {width}, regularisation {regularization}; "
+                "increase the regularisation"
+            ) from error
+        self.width_ = float(width)
+        self.regularization_ = float(regularization)
+        self.dual_coef_ = scipy.linalg.cho_solve((lower, True), residual, check_finite=False)
+        forget_uncertainty(self)
+        if self.predictive_std:
+            # diag(C^{-1}) = column sums of squares of L^{-1}, for C = L L^T.
+            inverse_lower = scipy.linalg.solve_triangular(lower, np.eye(len(lower)), lower=True, check_finite=False)
+            inverse_diagonal = np.einsum("ij,ij->j", inverse_lower, inverse_lower)
+            self.std_scale_ = interval_scale(
+                self.dual_coef_ / inverse_diagonal, 1.0 / inverse_diagonal, check_interval_level(self.interval_level)
+            )
+            self.cholesky_ = lower
+        self.training_fingerprint_ = training_fingerprint(X, y)
+        return self
+
+    def predict(self, X, return_std: bool = False):
+        """Energies of ``X``; with ``return_std``, also the calibrated standard deviation of each."""
+        check_is_fitted(self, "dual_coef_")
+        features = self._features(X)
+        kernel = self._make_kernel()
+        cross = kernel.table(features, self._training_features(), [self.width_]).matrix(0)
+        energies = cross @ self.dual_coef_ + self._predict_baseline(X)
+        if not return_std:
+            return energies
+        if not hasattr(self, "cholesky_"):
+            raise ModelInputError("this model was fitted with predictive_std=False; refit with predictive_std=True")
+        reduced = scipy.linalg.solve_triangular(self.cholesky_, cross.T, lower=True, check_finite=False)
+        latent = np.maximum(kernel.self_similarity(features, self.width_) - np.sum(reduced**2, axis=0), 0.0)
+        return energies, self.std_scale_ * np.sqrt(latent + self.regularization_)
+
+
+class _GlobalFeatures:
+    """Features: one vector per molecule, optionally standardised with training statistics."""
+
+    def _make_kernel(self):
+        return GlobalKernel(self.kernel)
+
+    @staticmethod
+    def _as_input(X):
+        return X if isinstance(X, CountedFeatures) else global_values(X)
+
+    def _fit_features(self, X):
+        values = global_values(X)
+        self.feature_mean_, self.feature_scale_ = fit_scaling(values, self.scale)
+        self.train_features_ = (values - self.feature_mean_) / self.feature_scale_
+        return self.train_features_
+
+    def _features(self, X):
+        values = global_values(X)
+        if values.shape[1] != len(self.feature_mean_):
+            raise ModelInputError(f"features have {values.shape[1]} columns; the model was fitted on {len(self.feature_mean_)}")
+        return (values - self.feature_mean_) / self.feature_scale_
+
+    def _training_features(self):
+        return self.train_features_
+
+    def _scales_per_fold(self) -> bool:
+        return bool(self.scale)
+
+    def _fold_features(self, X, train, validation):
+        values = global_values(X)
+        mean, spread = fit_scaling(values[train], self.scale)
+        return (values[train] - mean) / spread, (values[validation] - mean) / spread
+
+
+class _AtomFeatures:
+    """Features: AtomFeatures, compared atom by atom within each element."""
+
+    def _make_kernel(self):
+        return AtomwiseKernel(self.dtype, self.block_size)
+
+    @staticmethod
+    def _as_input(X):
+        return atom_features(X)
+
+    def _fit_features(self, X):
+        X = atom_features(X)
+        self.train_values_, self.train_numbers_, self.train_offsets_ = X.values, X.numbers, X.offsets
+        return X
+
+    def _features(self, X):
+        X = atom_features(X)
+        if X.values.shape[1] != self.train_values_.shape[1]:
+            raise ModelInputError(
+                f"atom vectors have {X.values.shape[1]} entries; the model was fitted on {self.train_values_.shape[1]}"
+            )
+        return X
+
+    def _training_features(self):
+        return AtomFeatures(self.train_values_, self.train_numbers_, self.train_offsets_)
+
+    def _scales_per_fold(self) -> bool:
+        return False
+
+
+class _GridSearch:
+    """k-fold cross-validation over widths x regularisations, then a refit on all data.
+
+    Sets ``cv_mae_`` (n_widths, n_regularizations: mean validation MAE over folds),
+    ``solver_``, ``width_`` and ``regularization_``. Ties go to the first grid point in
+    scikit-learn's ``ParameterGrid`` order (regularisation outer, width inner).
+    """
+
+    def _folds(self, n: int):
+        splitter = KFold(self.cv, shuffle=True, random_state=self.random_state) if isinstance(self.cv, int) else self.cv
+        if not hasattr(splitter, "split"):
+            raise ModelInputError(f"cv must be an int or a scikit-learn splitter, got {self.cv!r}")
+        return list(splitter.split(np.zeros((n, 1))))
+
+    def fit(self, X, y):
+        X = self._as_input(X)
+        y = targets(y, len(X))
+        widths = check_widths(self.widths)
+        regularizations = check_regularizations(self.regularizations)
+        self.solver_ = choose_solver(self.solver, len(regularizations))
+        folds = self._folds(len(y))
+        kernel = self._make_kernel()
+        shared = None if self._scales_per_fold() else kernel.table(self._fit_features(X), self._training_features(), widths)
+        errors = np.zeros((len(folds), len(widths), len(regularizations)))
+        bar = tqdm(folds, desc=type(self).__name__, unit="fold", disable=None if self.progress is None else not self.progress)
+        for i_fold, (train, validation) in enumerate(bar):
+            state = fit_baseline(self.baseline, X[train], y[train])
+            y_train = y[train] - predict_baseline(state, X[train])
+            y_val = y[validation] - predict_baseline(state, X[validation])
+            if shared is None:
+                train_features, val_features = self._fold_features(X, train, validation)
+                train_table = kernel.table(train_features, train_features, widths)
+                val_table = kernel.table(val_features, train_features, widths)
+            for i_width in range(len(widths)):
+                if shared is None:
+                    kernel_train, kernel_val = train_table.matrix(i_width), val_table.matrix(i_width)
+                else:
+                    kernel_train = shared.matrix(i_width, train, train)
+                    kernel_val = shared.matrix(i_width, validation, train)
+                errors[i_fold, i_width] = validation_errors(
+                    kernel_train, kernel_val, y_train, y_val, regularizations, self.solver_
+                )
+        self.cv_mae_ = errors.mean(axis=0)
+        i_reg, i_width = np.unravel_index(np.argmin(self.cv_mae_.T), self.cv_mae_.T.shape)
+        full_kernel = None if shared is None else shared.matrix(i_width)
+        return self._fit_fixed(X, y, widths[i_width], regularizations[i_reg], full_kernel)
+
+
+_STD_DOC = """
+    predictive_std : bool
+        Keep the Cholesky factor and calibrate the amplitude, for ``predict(X, return_std=True)``
+        (costs one extra inverse of the training kernel, and n^2 stored floats).
+    interval_level : float
+        Coverage the calibration aims at: central intervals of this probability should hold
+        this fraction of held-out errors."""
+
+
+class KernelRidgeModel(_GlobalFeatures, _KernelRidgeBase):
+    __doc__ = f"""Kernel ridge regression with a Gaussian or Laplacian kernel on global features.
+
+    Parameters
+    ----------
+    kernel : {{"gaussian", "laplacian"}}
+        ``exp(-|x-y|_2^2 / (2 width^2))`` or ``exp(-|x-y|_1 / width)``.
+    width : float
+        Kernel width ``s``, in the (scaled) feature unit.
+    regularization : float
+        ``lambda`` added to the kernel diagonal.
+    scale : bool
+        Standardise each feature with the training mean and standard deviation.
+    baseline : {{"elements", "mean", None}}
+        What is fitted first and added back (see :mod:`molinv.models.baseline`);
+        ``"elements"`` needs CountedFeatures.
+    {_STD_DOC}
+    """
+
+    def __init__(self, kernel="laplacian", width=1.0, regularization=1e-8, scale=False, baseline="elements",
+                 predictive_std=True, interval_level=0.9):
+        self.kernel = kernel
+        self.width = width
+        self.regularization = regularization
+        self.scale = scale
+        self.baseline = baseline
+        self.predictive_std = predictive_std
+        self.interval_level = interval_level
+
+    def fit(self, X, y):
+        X = self._as_input(X)
+        width = check_widths(self.width)[0]
+        return self._fit_fixed(X, y, width, check_regularizations(self.regularization)[0])
+
+
+class KernelRidgeCV(_GlobalFeatures, _GridSearch, _KernelRidgeBase):
+    __doc__ = f"""Kernel ridge regression with width and regularisation chosen by k-fold CV (lowest mean MAE).
+
+    Parameters
+    ----------
+    kernel : {{"gaussian", "laplacian"}}
+    widths, regularizations : sequences of float
+        The grid.
+    cv : int or scikit-learn splitter
+        An int means ``KFold(cv, shuffle=True, random_state=random_state)``.
+    random_state : int
+    solver : {{"auto", "cholesky", "eigen"}}
+        How each width is solved for all regularisations; ``"auto"``: see :func:`choose_solver`.
+    scale, baseline :
+        As in :class:`KernelRidgeModel`; both are fitted on each training fold only.
+    {_STD_DOC}
+    progress : bool or None
+        tqdm bar over folds (``None``: shown on a terminal only).
+    """
+
+    def __init__(self, kernel="laplacian", widths=(1.0, 4.0, 16.0, 64.0, 256.0, 1024.0),
+                 regularizations=(1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0), cv=5, random_state=0, solver="auto",
+                 scale=False, baseline="elements", predictive_std=True, interval_level=0.9, progress=None):
+        self.kernel = kernel
+        self.widths = widths
+        self.regularizations = regularizations
+        self.cv = cv
+        self.random_state = random_state
+        self.solver = solver
+        self.scale = scale
+        self.baseline = baseline
+        self.predictive_std = predictive_std
+        self.interval_level = interval_level
+        self.progress = progress
+
+
+_ATOM_DOC = """dtype : {"float64", "float32"}
+        Precision of atom-pair distances and atom kernels (molecule kernels are summed in float64).
+        float32 was 1.0-2.1x faster in our runs; its kernel error (measured on QM9 radial atom features: about
+        3e-7 of the largest entry) is amplified by the solve roughly as 1/regularisation: measured
+        mean |E32 - E64| 0.4, 2.4, 14, 55 meV at regularisation 1e-1, 1e-2, 1e-3, 1e-4 (largest
+        kernel entry 351; benchmarks/bench_models.py). Use it only with regularisation >~ 1e-2.
+    block_size : int
+        Atoms per block in the kernel computation (memory vs. call overhead)."""
+
+
+class AtomwiseKernelRidge(_AtomFeatures, _KernelRidgeBase):
+    __doc__ = f"""Kernel ridge regression with the atom-by-atom Gaussian kernel on AtomFeatures.
+
+    ``K(A, B) = sum over same-element atom pairs of exp(-|x_i - x_k|^2 / (2 width^2))``
+    (De, Bartok, Csanyi, Ceriotti, Phys. Chem. Chem. Phys. 18, 13754, 2016).
+
+    Parameters
+    ----------
+    width, regularization, baseline :
+        As in :class:`KernelRidgeModel` (the element baseline comes from the atomic numbers).
+    {_ATOM_DOC}
+    {_STD_DOC}
+    """
+
+    def __init__(self, width=1.0, regularization=1e-8, dtype="float64", block_size=2048, baseline="elements",
+                 predictive_std=True, interval_level=0.9):
+        self.width = width
+        self.regularization = regularization
+        self.dtype = dtype
+        self.block_size = block_size
+        self.baseline = baseline
+        self.predictive_std = predictive_std
+        self.interval_level = interval_level
+
+    def fit(self, X, y):
+        X = self._as_input(X)
+        return self._fit_fixed(X, y, check_widths(self.width)[0], check_regularizations(self.regularization)[0])
+
+
+class AtomwiseKernelRidgeCV(_AtomFeatures, _GridSearch, _KernelRidgeBase):
+    __doc__ = f"""Atom-by-atom kernel ridge regression with width and regularisation chosen by k-fold CV.
+
+    The molecule kernels of all training molecules are computed once for every width
+    (atom-pair distances shared across widths, only half the atom pairs thanks to symmetry)
+    and sliced per fold.
+
+    Parameters
+    ----------
+    widths, regularizations, cv, random_state, solver, baseline, progress :
+        As in :class:`KernelRidgeCV`.
+    {_ATOM_DOC}
+    {_STD_DOC}
+    """
+
+    def __init__(self, widths=(0.5, 1.0, 2.0, 4.0), regularizations=(1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0), cv=5,
+                 random_state=0, solver="auto", dtype="float64", block_size=2048, baseline="elements",
+                 predictive_std=True, interval_level=0.9, progress=None):
+        self.widths = widths
+        self.regularizations = regularizations
+        self.cv = cv
+        self.random_state = random_state
+        self.solver = solver
+        self.dtype = dtype
+        self.block_size = block_size
+        self.baseline = baseline
+        self.predictive_std = predictive_std
+        self.interval_level = interval_level
+        self.progress = progress

@@ -1,0 +1,263 @@
+"""Nystrom approximation of kernel ridge regression, for training sets too large for an n x n kernel.
+
+With landmarks :math:`L` the kernel is approximated by
+:math:`k(x, y) \\approx \\phi(x)^T \\phi(y)`, :math:`\\phi(x) = K_{LL}^{-1/2} k(L, x)`
+(Williams and Seeger, "Using the Nystrom method to speed up kernel machines",
+NIPS 13, 2001), which turns kernel ridge into linear ridge on :math:`\\phi`:
+:math:`w = (\\Phi^T \\Phi + \\lambda I)^{-1} \\Phi^T y`. Only the
+:math:`r \\times r` normal equations are held in memory; :math:`\\Phi` is built chunk
+by chunk of molecules.
+
+* Global kernels (Gaussian, Laplacian): landmarks are ``n_landmarks`` training molecules.
+* Atom-by-atom kernel: ``n_landmarks`` training atoms per element; a molecule's
+  feature is the sum over its atoms of their element block,
+  :math:`\\phi(A) = \\sum_{i \\in A} K_{L_{Z_i} L_{Z_i}}^{-1/2} k(L_{Z_i}, x_i)`,
+  so that :math:`\\phi(A)^T \\phi(B)` approximates the atom-by-atom kernel.
+
+With every training point (every training atom) as a landmark the predictions
+are those of exact kernel ridge. Predictive variance, in the same Gaussian-process
+reading as :mod:`molinv.models.kernel_ridge`, for the approximate kernel plus the
+part of :math:`k(x, x)` the landmarks miss:
+
+.. math::  \\sigma^2(x) = a^2 \\left(k(x, x) - |\\phi|^2 + \\lambda \\phi^T (\\Phi^T \\Phi + \\lambda I)^{-1} \\phi + \\lambda\\right)
+
+calibrated on leave-one-out residuals :math:`r_i / (1 - h_i)` of the linear ridge, with
+variances :math:`\\lambda / (1 - h_i) + k(x_i, x_i) - |\\phi_i|^2`,
+:math:`h_i = \\phi_i^T (\\Phi^T\\Phi + \\lambda I)^{-1} \\phi_i` (the missed part keeps
+the calibration consistent with the test-time variance when landmarks are few).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.linalg
+from sklearn.base import BaseEstimator, RegressorMixin
+from sklearn.utils.validation import check_is_fitted
+from tqdm.auto import tqdm
+
+from molinv.models.baseline import BaselineMixin
+from molinv.models.inputs import (
+    CountedFeatures,
+    ModelInputError,
+    atom_features,
+    global_values,
+    targets,
+    training_fingerprint,
+)
+from molinv.models.kernel_ridge import (
+    check_interval_level,
+    check_regularizations,
+    fit_scaling,
+    forget_uncertainty,
+    interval_scale,
+)
+from molinv.models.kernels import (
+    ATOM_DTYPES,
+    GLOBAL_KERNELS,
+    AtomwiseKernel,
+    GlobalKernel,
+    check_widths,
+    molecule_indicator,
+    squared_distances,
+)
+
+NYSTROM_KERNELS = GLOBAL_KERNELS + ("atomwise",)
+
+
+def inverse_square_root(kernel: np.ndarray, rcond: float) -> np.ndarray:
+    """``K^{-1/2}`` restricted to eigenvalues above ``rcond * max``: returns ``V_r / sqrt(Lambda_r)``
+    (shape ``m x r``), so that ``phi = k(L, x)^T V_r Lambda_r^{-1/2}``."""
+    eigenvalues, vectors = scipy.linalg.eigh(kernel)
+    keep = eigenvalues > rcond * eigenvalues[-1]
+    return vectors[:, keep] / np.sqrt(eigenvalues[keep])
+
+
+class NystromRidge(BaselineMixin, RegressorMixin, BaseEstimator):
+    """Kernel ridge regression approximated with Nystrom landmark features.
+
+    Parameters
+    ----------
+    kernel : {"gaussian", "laplacian", "atomwise"}
+        As in :class:`~molinv.models.KernelRidgeModel` (global features) or
+        :class:`~molinv.models.AtomwiseKernelRidge` (AtomFeatures).
+    width, regularization : float
+        Kernel width and ``lambda``.
+    n_landmarks : int
+        Landmark molecules (global kernels) or landmark atoms per element (atomwise),
+        drawn at random from the training set; all of them when there are fewer.
+    random_state : int
+        Seed of the landmark draw.
+    rcond : float
+        Eigenvalues of the landmark kernel below ``rcond`` times the largest are dropped.
+    dtype : {"float32", "float64"}
+        Precision of atom-to-landmark kernels (atomwise only); features are summed in float64.
+    scale : bool
+        Standardise global features with training statistics (global kernels only).
+    baseline : {"elements", "mean", None}
+    chunk_size : int
+        Molecules per chunk when building features.
+    predictive_std, interval_level :
+        As in :class:`~molinv.models.KernelRidgeModel`; the calibration needs a second
+        pass over the training set.
+    progress : bool or None
+        tqdm bar over chunks.
+    """
+
+    def __init__(self, kernel="gaussian", width=1.0, regularization=1e-8, n_landmarks=1000, random_state=0,
+                 rcond=1e-12, dtype="float64", scale=False, baseline="elements", chunk_size=2000,
+                 predictive_std=True, interval_level=0.9, progress=None):
+        self.kernel = kernel
+        self.width = width
+        self.regularization = regularization
+        self.n_landmarks = n_landmarks
+        self.random_state = random_state
+        self.rcond = rcond
+        self.dtype = dtype
+        self.scale = scale
+        self.baseline = baseline
+        self.chunk_size = chunk_size
+        self.predictive_std = predictive_std
+        self.interval_level = interval_level
+        self.progress = progress
+
+    # --- features -------------------------------------------------------------------------------
+
+    def _check_settings(self):
+        if self.kernel not in NYSTROM_KERNELS:
+            raise ModelInputError(f"kernel must be one of {NYSTROM_KERNELS}, got {self.kernel!r}")
+        if self.dtype not in ATOM_DTYPES:
+            raise ModelInputError(f"dtype must be one of {ATOM_DTYPES}, got {self.dtype!r}")
+        if int(self.n_landmarks) < 1 or int(self.chunk_size) < 1:
+            raise ModelInputError("n_landmarks and chunk_size must be positive")
+
+    def _inputs(self, X):
+        if self.kernel == "atomwise":
+            return atom_features(X)
+        return X if isinstance(X, CountedFeatures) else global_values(X)
+
+    def _scaled(self, X) -> np.ndarray:
+        values = global_values(X)
+        if values.shape[1] != len(self.feature_mean_):
+            raise ModelInputError(f"features have {values.shape[1]} columns; the model was fitted on {len(self.feature_mean_)}")
+        return (values - self.feature_mean_) / self.feature_scale_
+
+    def _choose_landmarks(self, X, rng):
+        if self.kernel != "atomwise":
+            values = global_values(X)
+            self.feature_mean_, self.feature_scale_ = fit_scaling(values, self.scale)
+            picked = np.sort(rng.choice(len(values), min(int(self.n_landmarks), len(values)), replace=False))
+            self.landmarks_ = self._scaled(values[picked])
+            self.landmark_numbers_ = np.zeros(len(picked), dtype=int)
+            return
+        picked = []
+        for z in np.unique(X.numbers):
+            atoms = np.flatnonzero(X.numbers == z)
+            picked.append(np.sort(rng.choice(atoms, min(int(self.n_landmarks), len(atoms)), replace=False)))
+        picked = np.concatenate(picked)
+        self.landmarks_, self.landmark_numbers_ = X.values[picked], X.numbers[picked]
+
+    def _landmark_kernel(self, rows: np.ndarray, landmarks: np.ndarray) -> np.ndarray:
+        if self.kernel == "atomwise":
+            distances = squared_distances(rows, landmarks, np.dtype(self.dtype))
+            return np.exp(distances * np.asarray(-0.5 / self.width_**2, dtype=distances.dtype))
+        return GlobalKernel(self.kernel).table(rows, landmarks, [self.width_]).matrix(0)
+
+    def _fit_projections(self):
+        blocks, shapes = [], []
+        for z in np.unique(self.landmark_numbers_):
+            landmarks = self.landmarks_[self.landmark_numbers_ == z]
+            block = inverse_square_root(self._landmark_kernel(landmarks, landmarks).astype(float), self.rcond)
+            blocks.append(block.ravel())
+            shapes.append(block.shape)
+        self.projection_flat_ = np.concatenate(blocks)
+        self.projection_shapes_ = np.asarray(shapes, dtype=int)
+
+    def _projections(self):
+        sizes = np.prod(self.projection_shapes_, axis=1)
+        pieces = np.split(self.projection_flat_, np.cumsum(sizes)[:-1])
+        return [piece.reshape(shape) for piece, shape in zip(pieces, self.projection_shapes_)]
+
+    def _features(self, X) -> np.ndarray:
+        """Landmark features ``phi`` of the molecules of ``X`` (one chunk), ``(n_molecules, r)``."""
+        projections = self._projections()
+        if self.kernel != "atomwise":
+            return self._landmark_kernel(self._scaled(X), self.landmarks_) @ projections[0]
+        if X.values.shape[1] != self.landmarks_.shape[1]:
+            raise ModelInputError(f"atom vectors have {X.values.shape[1]} entries; fitted on {self.landmarks_.shape[1]}")
+        molecule = X.molecule_index()
+        elements = np.unique(self.landmark_numbers_)
+        unknown = np.setdiff1d(X.numbers, elements)
+        if len(unknown):
+            raise ModelInputError(f"atomic numbers {unknown.tolist()} have no landmarks in this model")
+        parts = []
+        for z, projection in zip(elements, projections):
+            atoms = np.flatnonzero(X.numbers == z)
+            landmarks = self.landmarks_[self.landmark_numbers_ == z]
+            indicator = molecule_indicator(molecule[atoms], len(X), np.float64)
+            summed = indicator @ self._landmark_kernel(X.values[atoms], landmarks).astype(float)
+            parts.append(summed @ projection)
+        return np.hstack(parts)
+
+    def _chunks(self, n: int):
+        starts = range(0, n, int(self.chunk_size))
+        bar = dict(desc=type(self).__name__, unit="chunk", disable=None if self.progress is None else not self.progress)
+        for start in tqdm(starts, **bar):
+            yield np.arange(start, min(start + int(self.chunk_size), n))
+
+    def _self_similarity(self, X) -> np.ndarray:
+        if self.kernel == "atomwise":
+            return AtomwiseKernel(self.dtype).self_similarity(X, self.width_)
+        return np.ones(len(X))
+
+    # --- fit / predict --------------------------------------------------------------------------
+
+    def fit(self, X, y):
+        self._check_settings()
+        X = self._inputs(X)
+        y = targets(y, len(X))
+        self.width_ = float(check_widths(self.width)[0])
+        self.regularization_ = float(check_regularizations(self.regularization)[0])
+        self._choose_landmarks(X, np.random.default_rng(self.random_state))
+        self._fit_projections()
+        residual = self._fit_baseline(X, y)
+        rank = int(self.projection_shapes_[:, 1].sum())
+        gram, moment = np.zeros((rank, rank)), np.zeros(rank)
+        for chunk in self._chunks(len(y)):
+            features = self._features(X[chunk])
+            gram += features.T @ features
+            moment += features.T @ residual[chunk]
+        gram[np.diag_indices(rank)] += self.regularization_
+        lower = scipy.linalg.cholesky(gram, lower=True)
+        self.coef_ = scipy.linalg.cho_solve((lower, True), moment)
+        forget_uncertainty(self)
+        if self.predictive_std:
+            self.cholesky_ = lower
+            loo_residuals, loo_variances = np.empty(len(y)), np.empty(len(y))
+            for chunk in self._chunks(len(y)):
+                features = self._features(X[chunk])
+                leverage = np.sum(scipy.linalg.solve_triangular(lower, features.T, lower=True) ** 2, axis=0)
+                missed = np.maximum(self._self_similarity(X[chunk]) - np.sum(features**2, axis=1), 0.0)
+                loo_residuals[chunk] = (residual[chunk] - features @ self.coef_) / (1.0 - leverage)
+                loo_variances[chunk] = self.regularization_ / (1.0 - leverage) + missed
+            self.std_scale_ = interval_scale(loo_residuals, loo_variances, check_interval_level(self.interval_level))
+        self.training_fingerprint_ = training_fingerprint(X, y)
+        return self
+
+    def predict(self, X, return_std: bool = False):
+        """Energies of ``X``; with ``return_std``, also the calibrated standard deviation of each."""
+        check_is_fitted(self, "coef_")
+        X = self._inputs(X)
+        if return_std and not hasattr(self, "cholesky_"):
+            raise ModelInputError("this model was fitted with predictive_std=False; refit with predictive_std=True")
+        energies, stds = np.empty(len(X)), np.empty(len(X))
+        for chunk in self._chunks(len(X)):
+            part = X[chunk]
+            features = self._features(part)
+            energies[chunk] = features @ self.coef_
+            if return_std:
+                reduced = scipy.linalg.solve_triangular(self.cholesky_, features.T, lower=True)
+                missed = self._self_similarity(part) - np.sum(features**2, axis=1)
+                latent = np.maximum(missed + self.regularization_ * np.sum(reduced**2, axis=0), 0.0)
+                stds[chunk] = self.std_scale_ * np.sqrt(latent + self.regularization_)
+        energies += self._predict_baseline(X)
+        return (energies, stds) if return_std else energies

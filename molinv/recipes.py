@@ -1,0 +1,173 @@
+"""Named descriptor and model choices, and the estimator that chains them on molecules.
+
+:class:`EnergyModel` is a scikit-learn regressor whose ``X`` is a list of
+``ase.Atoms``: it fits the descriptor (element set, padding) on the training
+molecules, turns them into the regressor's input and fits the regressor. Its
+model file holds the regressor's arrays plus the descriptor settings, units and
+target name (see :mod:`molinv.models.modelfile`; no pickle).
+"""
+
+from __future__ import annotations
+
+import inspect
+from importlib import import_module
+
+import numpy as np
+from sklearn.base import BaseEstimator, RegressorMixin, clone
+from sklearn.utils.validation import check_is_fitted
+
+from molinv.descriptors.base import MoleculeDescriptor, descriptor_from_settings
+from molinv.models.inputs import with_element_counts
+from molinv.models.modelfile import load_model, read_extra_arrays, save_model
+from molinv.screening.applicability import ApplicabilityCheck
+
+#: Descriptor choices: our name -> (module, class, parameters, what it is).
+DESCRIPTORS = {
+    "atoms": ("molinv.descriptors.atomic", "AtomWaveletInvariants", {},
+              "atom-centred solid-harmonic wavelet invariants, one vector per atom"),
+    "density": ("molinv.descriptors.density", "DensityScattering", {},
+                "global solid-harmonic wavelet scattering invariants of the density, first and second order "
+                "(grid-based: about 1-3 s per molecule)"),
+    "density-exact": ("molinv.descriptors.density", "DensityScattering", {"powers": (2,), "second_order": False},
+                      "the q=2 global scattering invariants only, exact sums over atom pairs (about 1 ms per molecule)"),
+    "coulomb": ("molinv.descriptors.reference", "CoulombMatrix", {"variant": "eigenvalues"},
+                "sorted Coulomb-matrix eigenvalues (Rupp et al. 2012)"),
+    "coulomb-sorted": ("molinv.descriptors.reference", "CoulombMatrix", {"variant": "sorted_matrix"},
+                       "Coulomb matrix sorted by row norm (Rupp et al. 2012)"),
+    "bonds": ("molinv.descriptors.reference", "BagOfBonds", {}, "bag of bonds (Hansen et al. 2015)"),
+    "counts": ("molinv.descriptors.reference", "ElementCounts", {}, "number of atoms of each element"),
+}
+
+MODELS = ("kernel", "linear", "baseline", "large")
+MODEL_HELP = {
+    "kernel": "kernel ridge, width and regularisation by 5-fold cross-validation",
+    "linear": "ridge regression on the descriptor",
+    "baseline": "per-element energies only (least squares on element counts)",
+    "large": "Nystrom-approximated kernel ridge, for tens of thousands of molecules",
+}
+
+
+class RecipeError(ValueError):
+    """An unknown descriptor or model name, or a pairing that cannot work."""
+
+
+def make_descriptor(name: str, **overrides) -> MoleculeDescriptor:
+    if name not in DESCRIPTORS:
+        raise RecipeError(f"unknown descriptor {name!r}; choose one of: {', '.join(DESCRIPTORS)}")
+    module, cls, params, _ = DESCRIPTORS[name]
+    try:
+        descriptor_class = getattr(import_module(module), cls)
+    except (ImportError, AttributeError) as error:
+        raise RecipeError(f"descriptor {name!r} is not available in this molinv ({error})") from None
+    return descriptor_class(**{**params, **overrides})
+
+
+def make_regressor(name: str, per_atom: bool, progress: bool | None = None):
+    from molinv import models
+
+    if name == "kernel":
+        return models.AtomwiseKernelRidgeCV(progress=progress) if per_atom else models.KernelRidgeCV(progress=progress)
+    if name == "linear":
+        return models.LinearRidge()
+    if name == "baseline":
+        return models.ElementBaseline()
+    if name == "large":
+        if per_atom:
+            raise RecipeError("model 'large' takes global descriptors; for 'atoms' use 'kernel'")
+        return models.NystromRidge(progress=progress)
+    raise RecipeError(f"unknown model {name!r}; choose one of: {', '.join(MODELS)}")
+
+
+def describe(descriptor: MoleculeDescriptor, molecules, feature_store=None):
+    """A fitted descriptor's values for ``molecules``, from the store when one is given."""
+    return feature_store.describe(descriptor, molecules) if feature_store is not None else descriptor.transform(molecules)
+
+
+def model_inputs(descriptor: MoleculeDescriptor, molecules, feature_store=None):
+    """What the regressors take: AtomFeatures as they are, global rows with element counts."""
+    features = describe(descriptor, molecules, feature_store)
+    if descriptor.per_atom:
+        return features
+    return with_element_counts(features, molecules, descriptor.elements_)
+
+
+class EnergyModel(RegressorMixin, BaseEstimator):
+    """Descriptor then regressor, as one estimator over lists of ``ase.Atoms``.
+
+    Parameters
+    ----------
+    descriptor : MoleculeDescriptor
+    regressor : a molinv model (see :mod:`molinv.models`)
+    feature_store : FeatureStore, optional
+        Cache the descriptor values on disk (see :mod:`molinv.descriptors.store`).
+    """
+
+    def __init__(self, descriptor, regressor, feature_store=None):
+        self.descriptor = descriptor
+        self.regressor = regressor
+        self.feature_store = feature_store
+
+    def _inputs(self, molecules):
+        return model_inputs(self.descriptor_, molecules, self.feature_store)
+
+    def fit(self, molecules, y):
+        molecules = list(molecules)
+        self.descriptor_ = clone(self.descriptor).fit(molecules)
+        inputs = self._inputs(molecules)
+        self.regressor_ = clone(self.regressor).fit(inputs, np.asarray(y, dtype=float))
+        self.applicability_ = ApplicabilityCheck().fit(inputs)
+        return self
+
+    def assess(self, molecules) -> dict[str, np.ndarray]:
+        """Predicted energy (eV), its standard deviation (eV, NaN if the model gives none),
+        nearest-training-neighbour distance, and why each lies outside the training domain
+        ('' when it does not; see :class:`ApplicabilityCheck`)."""
+        check_is_fitted(self, "regressor_")
+        inputs = self._inputs(list(molecules))
+        if self.gives_std:
+            predicted, std = self.regressor_.predict(inputs, return_std=True)
+        else:
+            predicted = self.regressor_.predict(inputs)
+            std = np.full(len(predicted), np.nan)
+        distance = self.applicability_.distances(inputs)
+        return {"predicted": np.asarray(predicted, float), "std": np.asarray(std, float), "distance": distance,
+                "outside_because": self.applicability_.reasons(inputs, distance)}
+
+    @property
+    def gives_std(self) -> bool:
+        """Whether the regressor states an uncertainty (kernel models do, linear ones do not)."""
+        return "return_std" in inspect.signature(self.regressor_.predict).parameters
+
+    def predict(self, molecules, return_std: bool = False):
+        """Energies (eV); with ``return_std`` also the calibrated standard deviation, NaN
+        when the regressor gives none."""
+        check_is_fitted(self, "regressor_")
+        inputs = self._inputs(list(molecules))
+        if not return_std:
+            return self.regressor_.predict(inputs)
+        if self.gives_std:
+            return self.regressor_.predict(inputs, return_std=True)
+        predicted = self.regressor_.predict(inputs)
+        return predicted, np.full(len(predicted), np.nan)
+
+    @property
+    def best_params_(self):
+        return getattr(self.regressor_, "best_params_", None)
+
+    def save(self, path, target: str = "energy", training: dict | None = None):
+        """Write the model file; energies in eV, lengths in Angstrom."""
+        check_is_fitted(self, "regressor_")
+        numbers, arrays = self.applicability_.state()
+        metadata = {"descriptor": self.descriptor_.settings(), "units": {"energy": "eV", "length": "Angstrom"},
+                    "target": target, "training": training or {}, "applicability": numbers}
+        return save_model(path, self.regressor_, metadata, extra_arrays=arrays)
+
+    @classmethod
+    def load(cls, path) -> tuple["EnergyModel", dict]:
+        """Rebuild a saved model; returns ``(model, metadata)``."""
+        regressor, metadata = load_model(path)
+        descriptor = descriptor_from_settings(metadata["descriptor"])
+        model = cls(descriptor, regressor)
+        model.descriptor_, model.regressor_ = descriptor, regressor
+        model.applicability_ = ApplicabilityCheck.from_state(metadata["applicability"], read_extra_arrays(path))
+        return model, metadata

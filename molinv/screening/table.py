@@ -1,0 +1,96 @@
+"""Predictions for candidate molecules as one table: every input row once, with a status.
+
+Statuses: ``ok``; ``flagged`` (predicted, but the reason says why to distrust
+it: far from every training molecule, or a name already used by an earlier
+row); ``failed`` (not predicted: unreadable record, or an element the model was
+not trained on). Geometries made from SMILES say so in ``geometry_source``: a
+model trained on quantum-chemistry geometries is less accurate on force-field ones.
+"""
+
+from __future__ import annotations
+
+from typing import Sequence
+
+import numpy as np
+import pandas as pd
+from ase import Atoms
+from ase.data import chemical_symbols
+
+from molinv.molecules.checks import Rejected
+from molinv.molecules.units import convert_energy
+
+CAUTION = (
+    "Predictions are statistical estimates, not a substitute for validated quantum-chemical calculations, "
+    "local regulations or expert review."
+)
+
+COLUMNS = ["record", "name", "smiles", "formula", "n_atoms", "geometry_source", "status", "reason"]
+
+
+def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejected] = (), unit: str = "kcal/mol",
+                     target: str = "energy", rank: bool = True) -> pd.DataFrame:
+    """Predictions of a fitted :class:`~molinv.recipes.EnergyModel`, one row per input record.
+
+    Columns: record, name, smiles, formula, n_atoms, geometry_source, status,
+    reason, ``<target>_<unit>``, ``std_<unit>`` (calibrated standard deviation),
+    ``domain_distance`` (to the nearest training molecule, in units of the
+    training set's own threshold: above 1 is flagged; see
+    :class:`~molinv.screening.applicability.ApplicabilityCheck`), and with ``rank`` the
+    columns of :func:`finish_ranking`.
+    """
+    known = set(model.descriptor_.elements_)
+    rows, usable = [], []
+    for atoms in molecules:
+        extra = sorted(set(int(z) for z in atoms.numbers) - known)
+        row = {"record": atoms.info.get("record"), "name": atoms.info.get("name"),
+               "smiles": atoms.info.get("smiles", ""), "formula": atoms.get_chemical_formula(), "n_atoms": len(atoms),
+               "geometry_source": atoms.info.get("geometry_source", "file"), "status": "ok", "reason": ""}
+        if extra:
+            row.update(status="failed", reason="elements not in the training set: "
+                       + ", ".join(chemical_symbols[z] for z in extra))
+        else:
+            usable.append(len(rows))
+        rows.append(row)
+    rows += [{"record": r.record, "name": r.name, "smiles": "", "formula": "", "n_atoms": np.nan,
+              "geometry_source": "", "status": "failed", "reason": r.reason} for r in rejected]
+    table = pd.DataFrame(rows, columns=COLUMNS)
+    value_column, std_column = f"{target}_{unit}", f"std_{unit}"
+    table[value_column] = np.nan
+    table[std_column] = np.nan
+    table["domain_distance"] = np.nan
+    if usable:
+        assessed = model.assess([molecules[i] for i in usable])
+        table.loc[usable, value_column] = convert_energy(assessed["predicted"], "eV", unit)
+        table.loc[usable, std_column] = convert_energy(assessed["std"], "eV", unit)
+        table.loc[usable, "domain_distance"] = assessed["distance"] / model.applicability_.threshold_
+        for row, why in zip(usable, assessed["outside_because"]):
+            if why:
+                table.loc[row, ["status", "reason"]] = ["flagged", why]
+    table = table.sort_values("record", kind="stable", na_position="last").reset_index(drop=True)
+    return finish_ranking(table, unit=unit, target=target) if rank else table
+
+
+def finish_ranking(table: pd.DataFrame, unit: str, target: str) -> pd.DataFrame:
+    """Flag repeated names, add per-atom and relative-to-best-isomer energies, rank by stability.
+
+    For a positive atomization energy the most stable candidate has the largest
+    value; for a total energy, the smallest. ``relative_to_best_isomer_<unit>``
+    is never negative: 0 for the most stable candidate of each formula.
+    """
+    if table.empty:
+        return table
+    table = table.copy()
+    value_column = f"{target}_{unit}"
+    repeated = table["name"].notna() & table.duplicated("name", keep="first")
+    first_record = table.groupby("name")["record"].transform("first")
+    table.loc[repeated & (table["status"] == "ok"), "status"] = "flagged"
+    note = "name also used by record " + first_record[repeated].astype("Int64").astype(str)
+    table.loc[repeated, "reason"] = np.where(table.loc[repeated, "reason"].fillna("") == "", note,
+                                             table.loc[repeated, "reason"].fillna("") + "; " + note)
+    table[f"{target}_per_atom_{unit}"] = table[value_column] / table["n_atoms"]
+    larger_is_stabler = target == "atomization_energy"
+    predicted = table[value_column].where(table["status"] != "failed")
+    best = predicted.groupby(table["formula"]).transform("max" if larger_is_stabler else "min")
+    table[f"relative_to_best_isomer_{unit}"] = (best - predicted) if larger_is_stabler else (predicted - best)
+    table["rank"] = predicted.rank(ascending=not larger_is_stabler, method="first")
+    return table.sort_values(["rank", "record"], na_position="last").reset_index(drop=True)
