@@ -85,7 +85,18 @@ def detect_format(path: Path) -> str:
     return fmt
 
 
-def read_molecules(
+def read_molecules(path, **options) -> ReadResult:
+    """Read every molecule in a file: the good ones and the rejected records.
+
+    ``options`` are those of :func:`iter_molecules`.
+    """
+    result = ReadResult(source=str(path))
+    for item in iter_molecules(path, **options):
+        (result.rejected if isinstance(item, Rejected) else result.molecules).append(item)
+    return result
+
+
+def iter_molecules(
     path,
     *,
     file_format: str | None = None,
@@ -97,8 +108,12 @@ def read_molecules(
     name_column: str | None = None,
     seed: int = EMBED_SEED,
     progress: bool | None = None,
-) -> ReadResult:
-    """Read every molecule in a file.
+    skip_records: int = 0,
+) -> Iterator[Atoms | Rejected]:
+    """Each record of a file in order, as an ``ase.Atoms`` or a :class:`Rejected`.
+
+    Records are built one at a time, so memory does not grow with the file (CSV
+    tables are read in blocks).
 
     Parameters
     ----------
@@ -122,35 +137,10 @@ def read_molecules(
         ETKDG seed for SMILES embedding.
     progress : bool or None
         tqdm progress bar over records (``None``: only on a terminal).
+    skip_records : int
+        The first records are passed over without being built (resuming a run).
     """
-    result = ReadResult(source=str(path))
-    for item in iter_molecules(path, file_format=file_format, length=length, energy=energy, energy_keys=energy_keys,
-                               require_energy=require_energy, smiles_column=smiles_column, name_column=name_column,
-                               seed=seed, progress=progress):
-        (result.rejected if isinstance(item, Rejected) else result.molecules).append(item)
-    return result
 
-
-def iter_molecules(
-    path,
-    *,
-    file_format: str | None = None,
-    length: str = "Angstrom",
-    energy: str = "eV",
-    energy_keys: Sequence[str] = ("energy",),
-    require_energy: bool = False,
-    smiles_column: str | None = None,
-    name_column: str | None = None,
-    seed: int = EMBED_SEED,
-    progress: bool | None = None,
-    skip_records: int = 0,
-) -> Iterator[Atoms | Rejected]:
-    """Each record of a file in order, as an ``ase.Atoms`` or a :class:`Rejected`.
-
-    Same parameters as :func:`read_molecules`; records are built one at a time, so
-    memory does not grow with the file (CSV tables are read in blocks). The first
-    ``skip_records`` records are passed over without being built (resuming a run).
-    """
     path = Path(path)
     if not path.is_file():
         raise InputError(f"{path}: no such file")
