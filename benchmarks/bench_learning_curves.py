@@ -22,7 +22,8 @@ from molinv.cli import main as molinv
 
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("--molecules", type=int, default=None, help="QM9 sample size (default: test + largest size)")
+    parser.add_argument("--molecules", type=int, default=None,
+                        help="QM9 sample size (default: test + twice the largest size, so draws differ)")
     parser.add_argument("--sizes", type=int, nargs="+", default=[100, 200, 500, 1000, 2000, 5000, 10000, 20000])
     parser.add_argument("--test-size", type=int, default=10000)
     parser.add_argument("--draws", type=int, default=3)
@@ -32,7 +33,7 @@ def main() -> int:
     parser.add_argument("--cache", default="benchmarks/results/feature_cache")
     parser.add_argument("--out", default="benchmarks/results/qm9_curves")
     args = parser.parse_args()
-    n = args.molecules or args.test_size + max(args.sizes)
+    n = args.molecules or args.test_size + 2 * max(args.sizes)
     command = ["curve", f"qm9:{n}:{args.seed}", "--model", "kernel", "--sizes", *map(str, args.sizes),
                "--test-size", str(args.test_size), "--draws", str(args.draws), "--seed", str(args.seed),
                "--jobs", str(args.jobs), "--cache", args.cache, "--out", args.out, "--target", "1.0"]

@@ -176,6 +176,7 @@ def run_describe(args) -> int:
 
 
 def run_fit(args) -> int:
+    from .evaluation.curves import chosen_hyperparameters
     from .molecules.units import convert_energy
 
     molecules, energies = labelled(args)
@@ -183,8 +184,9 @@ def run_fit(args) -> int:
     path = model.save(args.out, target=energy_key(args),
                       training={"source": str(args.input), "n_molecules": len(molecules)})
     print(f"model fitted on {len(molecules)} molecules -> {path}")
-    if model.best_params_:
-        print("chosen by cross-validation: " + ", ".join(f"{k}={v:g}" for k, v in model.best_params_.items()))
+    chosen = chosen_hyperparameters(model.regressor_)
+    if chosen:
+        print("hyperparameters: " + ", ".join(f"{k}={v:g}" for k, v in chosen.items()))
     spread = convert_energy(float(energies.std()), "eV", "kcal/mol")
     print(f"training energies spread (standard deviation): {spread:.2f} kcal/mol")
     return 0
@@ -205,6 +207,8 @@ def run_predict(args) -> int:
 
 
 def run_curve(args) -> int:
+    import json
+
     from .evaluation import CurveRun, write_report
     from .molecules.qm9 import CITATION
     from .recipes import model_inputs
@@ -217,18 +221,22 @@ def run_curve(args) -> int:
     molecules, energies = labelled(args)
     run = CurveRun.open(args.out / "run", energies, test_size=args.test_size, sizes=args.sizes,
                         n_draws=args.draws, seed=args.seed)
+    recorded = {}
     for descriptor_name, model_name in zip(descriptors, models):
         model = energy_model(descriptor_name, model_name, args)
         # The descriptor is fitted (element set, padding) on all molecules, labels unseen;
         # the regressor is fitted on each training draw only.
         inputs = model_inputs(model.descriptor.fit(molecules), molecules, model.feature_store)
-        run.run(inputs, model.regressor, f"{descriptor_name} + {model_name}", progress=True)
+        label = f"{descriptor_name} + {model_name}"
+        recorded[f"{label}: descriptor"] = json.dumps(model.descriptor.settings()["params"])
+        recorded[f"{label}: model"] = json.dumps(model.regressor.get_params(), default=str)
+        run.run(inputs, model.regressor, label, progress=True)
 
     page = write_report(run, args.out, unit=args.unit, target=args.target,
                         n_atoms=[len(a) for a in molecules],
                         settings={"data": args.input, "energy": energy_key(args), "test molecules": args.test_size,
                                   "draws per size": args.draws, "seed": args.seed, "descriptors": ", ".join(descriptors),
-                                  "models": ", ".join(models)},
+                                  "models": ", ".join(models), **recorded},
                         data_citation=CITATION if parse_qm9_source(args.input) else str(args.input))
     print(f"report: {page}")
     return 0

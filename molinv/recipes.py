@@ -150,10 +150,6 @@ class EnergyModel(RegressorMixin, BaseEstimator):
         predicted = self.regressor_.predict(inputs)
         return predicted, np.full(len(predicted), np.nan)
 
-    @property
-    def best_params_(self):
-        return getattr(self.regressor_, "best_params_", None)
-
     def save(self, path, target: str = "energy", training: dict | None = None):
         """Write the model file; energies in eV, lengths in Angstrom."""
         check_is_fitted(self, "regressor_")

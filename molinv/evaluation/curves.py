@@ -74,12 +74,21 @@ def _dataset_fingerprint(y: np.ndarray, test: np.ndarray) -> str:
     return digest.hexdigest()[:16]
 
 
-def _selected_hyperparameters(model) -> dict:
-    """What a cross-validated model chose, for the record (``best_params_`` if it has one)."""
-    chosen = getattr(model, "best_params_", None)
-    if chosen is None:
-        return {}
-    return {k: (v.item() if isinstance(v, np.generic) else v) for k, v in dict(chosen).items()}
+def chosen_hyperparameters(model) -> dict:
+    """What a cross-validated model chose (``width_``, ``regularization_``), flagging grid edges.
+
+    A choice on the edge of its grid means the best value may lie outside it.
+    """
+    chosen = {}
+    for attribute, grid_name in (("width_", "widths"), ("regularization_", "regularizations")):
+        if not hasattr(model, attribute):
+            continue
+        key = attribute.rstrip("_")
+        chosen[key] = float(getattr(model, attribute))
+        grid = getattr(model, grid_name, None)
+        if grid is not None and len(grid) > 1 and chosen[key] in (min(grid), max(grid)):
+            chosen[f"{key}_at_grid_edge"] = True
+    return chosen
 
 
 @dataclass
@@ -142,7 +151,7 @@ class CurveRun:
             fit_seconds = time.perf_counter() - started
             predicted = np.asarray(fitted.predict(X_test), dtype=float)
             point = {"label": label, "size": size, "draw": draw, **error_metrics(y_test, predicted),
-                     "fit_seconds": fit_seconds, "hyperparameters": _selected_hyperparameters(fitted)}
+                     "fit_seconds": fit_seconds, "hyperparameters": chosen_hyperparameters(fitted)}
             path = self._point_path(label, size, draw)
             path.parent.mkdir(parents=True, exist_ok=True)
             np.savez(path.with_suffix(".tmp.npz"), predicted=predicted)

@@ -148,8 +148,17 @@ def write_report(
     return folder / "report.html"
 
 
+#: Extrapolations beyond this are reported as such, not as a number (the whole of
+#: chemical space in QM9's range is about 1e9 molecules; common practice, no source).
+_LARGEST_SIZE_SHOWN = 1e9
+
+
 def _size_text(size: float) -> str:
-    return "never (curve not falling)" if math.isinf(size) else f"{size:,.0f}"
+    if math.isinf(size):
+        return "never (curve not falling)"
+    if size > _LARGEST_SIZE_SHOWN:
+        return "beyond 1e9 (curve nearly flat)"
+    return f"{size:,.0f}"
 
 
 def _html_page(title, summary, extrapolation, settings, citation, unit, best_label, largest, n_test) -> str:
