@@ -115,6 +115,10 @@ def learning_curve(args, descriptor) -> list[dict]:
     sizes = sorted(int(s) for s in args.sizes.split(","))
     n_total = args.n_test + args.n_val + sizes[-1]
     molecules = load_qm9(n=n_total, seed=args.seed)
+    # The sample comes back in QM9 index order (small molecules first); shuffle so that
+    # test, validation and each nested training set are drawn from the same population.
+    order = np.random.default_rng(args.seed).permutation(n_total)
+    molecules = [molecules[i] for i in order]
     energies = np.array([atoms.info["atomization_energy"] for atoms in molecules])  # eV
     start = time.perf_counter()
     features = descriptor.fit(molecules[:1]).transform(molecules)
@@ -181,9 +185,9 @@ def main(argv=None):
     parser.add_argument("--sizes", default="1000,2000,4000", help="training sizes, comma separated")
     parser.add_argument("--n-val", type=int, default=500)
     parser.add_argument("--n-test", type=int, default=1000)
-    parser.add_argument("--width-factors", type=lambda s: [float(x) for x in s.split(",")], default=[1.0, 1.5, 2.0, 3.0])
+    parser.add_argument("--width-factors", type=lambda s: [float(x) for x in s.split(",")], default=[1.5, 2.0, 3.0])
     parser.add_argument("--zetas", type=lambda s: [float(x) for x in s.split(",")], default=[2.0, 4.0])
-    parser.add_argument("--ridges", type=lambda s: [float(x) for x in s.split(",")], default=[1e-10, 1e-8, 1e-6, 1e-4])
+    parser.add_argument("--ridges", type=lambda s: [float(x) for x in s.split(",")], default=[1e-6, 1e-5, 1e-4, 1e-3, 1e-2])
     args = parser.parse_args(argv)
     descriptor = descriptor_from_args(args)
     sample = load_qm9(n=args.n, seed=args.seed + 1)

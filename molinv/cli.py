@@ -266,6 +266,7 @@ DEMO_DATA = Path(__file__).resolve().parent.parent / "data_demo" / "candidates.c
 def run_demo(args) -> int:
     """Learning curve on a QM9 sample, a model fitted on it, and the demo candidates ranked."""
     from .evaluation import CurveRun, write_report
+    from .evaluation.curves import training_draw
     from .molecules import read_molecules
     from .molecules.qm9 import CITATION, load_qm9
     from .recipes import EnergyModel, make_descriptor, make_regressor, model_inputs
@@ -291,7 +292,7 @@ def run_demo(args) -> int:
                         data_citation=CITATION, title="molinv demo: learning curves on QM9")
     largest = max(run.sizes)
     print(f"3/3 fitting atoms + kernel on {largest} QM9 molecules and ranking {candidates_file.name}")
-    train = [molecules[i] for i in run.pool[:largest]]
+    train = [molecules[i] for i in training_draw(run.pool, largest, 0, args.seed)]
     model = EnergyModel(make_descriptor("atoms"), make_regressor("kernel", True, progress=True))
     model.fit(train, [atoms.info["atomization_energy"] for atoms in train])
     model.save(out / "model.npz", target="atomization_energy", training={"source": "QM9", "n_molecules": largest})

@@ -282,9 +282,20 @@ class AtomWaveletInvariants(MoleculeDescriptor):
         not only the moduli.
     normalize : bool
         Scale each atom's vector to unit Euclidean length (atoms with no
-        neighbours keep a zero vector).
+        neighbours keep a zero vector), for dot-product kernels.
     elements, n_jobs, chunk_size, progress
         See :class:`MoleculeDescriptor`.
+
+    Notes
+    -----
+    Defaults were chosen with the kernel ridge check in
+    benchmarks/bench_descriptors_atomic.py (QM9 U0 atomization energy, per-element
+    linear baseline, Gaussian kernel summed over same-element atom pairs).
+    Measured there: 1.7, 1.2 and 0.8 kcal/mol test MAE at 1,000, 2,000 and 4,000
+    training molecules. Unnormalised vectors beat unit-length ones (3.2 against
+    4.7 kcal/mol in one run at 1,000) because the vector's size carries the
+    local density; ``q = 3`` beat ``q = 2``; degrees above 4 and more than six
+    scales did not help per cost. About 1.6 ms per QM9 molecule on one core.
     """
 
     per_atom = True

@@ -212,11 +212,16 @@ class Qm9:
         return np.flatnonzero(keep)
 
     def sample(self, n: int | None = None, seed: int = 0, **selection) -> np.ndarray:
-        """A reproducible random sample (positions) of ``n`` molecules from a selection."""
+        """A reproducible random sample (positions) of ``n`` molecules from a selection, in random order.
+
+        The order is shuffled too (QM9 is sorted by size), so that taking the first
+        molecules of a sample is itself a random draw; ``n=None`` shuffles the whole selection.
+        """
         candidates = self.select(**selection)
+        rng = np.random.default_rng(seed)
         if n is None or n >= len(candidates):
-            return candidates
-        return np.sort(np.random.default_rng(seed).choice(candidates, size=n, replace=False))
+            return rng.permutation(candidates)
+        return rng.choice(candidates, size=n, replace=False)
 
     def table(self, positions: np.ndarray | None = None) -> pd.DataFrame:
         """Scalar properties, one row per molecule; energies in eV, units in ``PROPERTY_UNITS``."""
@@ -291,8 +296,9 @@ def load_qm9(
 ) -> list[Atoms]:
     """QM9 molecules as ``ase.Atoms`` (energies in eV; see :meth:`Qm9.molecules`).
 
-    ``n`` draws a reproducible random sample (by ``seed``) from the molecules with
-    at most ``max_heavy_atoms`` heavy atoms and only ``elements``; ``None`` takes all.
+    ``n`` draws a reproducible random sample (by ``seed``), in random order, from the
+    molecules with at most ``max_heavy_atoms`` heavy atoms and only ``elements``;
+    ``None`` takes all of them (shuffled).
     """
     data = open_qm9()
     return data.molecules(data.sample(n, seed, max_heavy_atoms=max_heavy_atoms, elements=elements))
