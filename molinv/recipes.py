@@ -39,6 +39,10 @@ DESCRIPTORS = {
 }
 
 MODELS = ("kernel", "linear", "baseline", "large")
+#: Cross-validation grid of the 'kernel' model: widths in units of the median distance
+#: between training rows (same-element atoms for atom-centred descriptors).
+KERNEL_WIDTHS = (0.25, 0.5, 1.0, 2.0, 4.0, 8.0, 16.0, 32.0, 64.0)
+KERNEL_REGULARIZATIONS = (1e-10, 1e-8, 1e-6, 1e-4, 1e-3, 1e-2, 1e-1, 1.0)
 MODEL_HELP = {
     "kernel": "kernel ridge, width and regularisation by 5-fold cross-validation",
     "linear": "ridge regression on the descriptor",
@@ -66,7 +70,9 @@ def make_regressor(name: str, per_atom: bool, progress: bool | None = None):
     from molinv import models
 
     if name == "kernel":
-        return models.AtomwiseKernelRidgeCV(progress=progress) if per_atom else models.KernelRidgeCV(progress=progress)
+        # Widths in units of the median training distance, so one grid fits every descriptor.
+        grid = dict(widths=KERNEL_WIDTHS, regularizations=KERNEL_REGULARIZATIONS, width_unit="median", progress=progress)
+        return models.AtomwiseKernelRidgeCV(**grid) if per_atom else models.KernelRidgeCV(**grid)
     if name == "linear":
         return models.LinearRidge()
     if name == "baseline":

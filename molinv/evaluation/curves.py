@@ -86,7 +86,10 @@ def chosen_hyperparameters(model) -> dict:
         key = attribute.rstrip("_")
         chosen[key] = float(getattr(model, attribute))
         grid = getattr(model, grid_name, None)
-        if grid is not None and len(grid) > 1 and chosen[key] in (min(grid), max(grid)):
+        # Widths may be given in units of a data-derived length (width_unit="median").
+        unit = float(getattr(model, "width_unit_value_", 1.0)) if key == "width" else 1.0
+        if grid is not None and len(grid) > 1 and any(np.isclose(chosen[key], unit * edge, rtol=1e-9)
+                                                     for edge in (min(grid), max(grid))):
             chosen[f"{key}_at_grid_edge"] = True
     return chosen
 

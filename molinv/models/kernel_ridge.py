@@ -124,6 +124,33 @@ def forget_uncertainty(model) -> None:
             delattr(model, name)
 
 
+def median_distance(features, kernel, random_state: int, n_pairs: int = 20000) -> float:
+    """Median distance (L1 for the Laplacian kernel, else Euclidean) between random pairs of
+    training rows; for AtomFeatures, between random pairs of atoms of the same element."""
+    rng = np.random.default_rng(random_state)
+    if isinstance(features, AtomFeatures):
+        first, second = [], []
+        for z in np.unique(features.numbers):
+            rows = np.flatnonzero(features.numbers == z)
+            if len(rows) > 1:
+                share = max(1, n_pairs * len(rows) // len(features.numbers))
+                first.append(rng.choice(rows, share))
+                second.append(rng.choice(rows, share))
+        values = features.values
+        first, second = np.concatenate(first), np.concatenate(second)
+    else:
+        values = np.asarray(features)
+        first, second = rng.integers(0, len(values), n_pairs), rng.integers(0, len(values), n_pairs)
+    keep = first != second
+    differences = values[first[keep]] - values[second[keep]]
+    laplacian = getattr(kernel, "kind", None) == "laplacian"
+    distances = np.abs(differences).sum(axis=1) if laplacian else np.linalg.norm(differences, axis=1)
+    median = float(np.median(distances))
+    if not median > 0:
+        raise ModelInputError("training features are all identical; no kernel width can be derived from them")
+    return median
+
+
 def fit_scaling(values: np.ndarray, scale: bool) -> tuple[np.ndarray, np.ndarray]:
     """Per-feature mean and standard deviation (1 where constant); identity when ``scale`` is false."""
     if not scale:
@@ -254,6 +281,16 @@ class _GridSearch:
     scikit-learn's ``ParameterGrid`` order (regularisation outer, width inner).
     """
 
+    def _width_unit_value(self, features) -> float:
+        """1 for absolute widths; for ``width_unit="median"`` the median distance between
+        training rows (same-element atoms for atom features), so that one grid suits any
+        descriptor's scale (a common heuristic for kernel widths; no source)."""
+        if self.width_unit == "absolute":
+            return 1.0
+        if self.width_unit != "median":
+            raise ModelInputError(f"width_unit must be 'absolute' or 'median', got {self.width_unit!r}")
+        return median_distance(features, self._make_kernel(), self.random_state)
+
     def _folds(self, n: int):
         splitter = KFold(self.cv, shuffle=True, random_state=self.random_state) if isinstance(self.cv, int) else self.cv
         if not hasattr(splitter, "split"):
@@ -263,12 +300,14 @@ class _GridSearch:
     def fit(self, X, y):
         X = self._as_input(X)
         y = targets(y, len(X))
-        widths = check_widths(self.widths)
         regularizations = check_regularizations(self.regularizations)
         self.solver_ = choose_solver(self.solver, len(regularizations))
         folds = self._folds(len(y))
         kernel = self._make_kernel()
-        shared = None if self._scales_per_fold() else kernel.table(self._fit_features(X), self._training_features(), widths)
+        training_features = self._fit_features(X)
+        self.width_unit_value_ = self._width_unit_value(training_features)
+        widths = check_widths(self.widths) * self.width_unit_value_
+        shared = None if self._scales_per_fold() else kernel.table(training_features, self._training_features(), widths)
         errors = np.zeros((len(folds), len(widths), len(regularizations)))
         bar = tqdm(folds, desc=type(self).__name__, unit="fold", disable=None if self.progress is None else not self.progress)
         for i_fold, (train, validation) in enumerate(bar):
@@ -360,9 +399,11 @@ class KernelRidgeCV(_GlobalFeatures, _GridSearch, _KernelRidgeBase):
 
     def __init__(self, kernel="laplacian", widths=(1.0, 4.0, 16.0, 64.0, 256.0, 1024.0),
                  regularizations=(1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0), cv=5, random_state=0, solver="auto",
-                 scale=False, baseline="elements", predictive_std=True, interval_level=0.9, progress=None):
+                 scale=False, baseline="elements", predictive_std=True, interval_level=0.9, progress=None,
+                 width_unit="absolute"):
         self.kernel = kernel
         self.widths = widths
+        self.width_unit = width_unit
         self.regularizations = regularizations
         self.cv = cv
         self.random_state = random_state
@@ -430,8 +471,9 @@ class AtomwiseKernelRidgeCV(_AtomFeatures, _GridSearch, _KernelRidgeBase):
 
     def __init__(self, widths=(0.5, 1.0, 2.0, 4.0), regularizations=(1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0), cv=5,
                  random_state=0, solver="auto", dtype="float64", block_size=2048, baseline="elements",
-                 predictive_std=True, interval_level=0.9, progress=None):
+                 predictive_std=True, interval_level=0.9, progress=None, width_unit="absolute"):
         self.widths = widths
+        self.width_unit = width_unit
         self.regularizations = regularizations
         self.cv = cv
         self.random_state = random_state

@@ -9,6 +9,7 @@ model trained on quantum-chemistry geometries is less accurate on force-field on
 
 from __future__ import annotations
 
+import re
 from typing import Sequence
 
 import numpy as np
@@ -16,6 +17,7 @@ import pandas as pd
 from ase import Atoms
 from ase.data import chemical_symbols
 
+from molinv.descriptors.base import DescriptorError
 from molinv.molecules.checks import Rejected
 from molinv.molecules.units import convert_energy
 
@@ -25,6 +27,20 @@ CAUTION = (
 )
 
 COLUMNS = ["record", "name", "smiles", "formula", "n_atoms", "geometry_source", "status", "reason"]
+
+
+def describable(descriptor, atoms: Atoms) -> str:
+    """Why the fitted descriptor cannot describe this molecule ('' when it can): an element
+    outside the training set, or more atoms or bond-bag entries than its fitted padding."""
+    extra = sorted(set(int(z) for z in atoms.numbers) - set(descriptor.elements_))
+    if extra:
+        return "elements not in the training set: " + ", ".join(chemical_symbols[z] for z in extra)
+    try:
+        descriptor._check_elements([atoms])
+    except DescriptorError as error:
+        # The message counts positions within the one-molecule list checked here; drop that.
+        return re.sub(r" \(position 0\)| at position 0", "", str(error))
+    return ""
 
 
 def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejected] = (), unit: str = "kcal/mol",
@@ -38,16 +54,14 @@ def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejec
     :class:`~molinv.screening.applicability.ApplicabilityCheck`), and with ``rank`` the
     columns of :func:`finish_ranking`.
     """
-    known = set(model.descriptor_.elements_)
     rows, usable = [], []
     for atoms in molecules:
-        extra = sorted(set(int(z) for z in atoms.numbers) - known)
         row = {"record": atoms.info.get("record"), "name": atoms.info.get("name"),
                "smiles": atoms.info.get("smiles", ""), "formula": atoms.get_chemical_formula(), "n_atoms": len(atoms),
                "geometry_source": atoms.info.get("geometry_source", "file"), "status": "ok", "reason": ""}
-        if extra:
-            row.update(status="failed", reason="elements not in the training set: "
-                       + ", ".join(chemical_symbols[z] for z in extra))
+        refusal = describable(model.descriptor_, atoms)
+        if refusal:
+            row.update(status="failed", reason=refusal)
         else:
             usable.append(len(rows))
         rows.append(row)
