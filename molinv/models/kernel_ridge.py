@@ -395,6 +395,9 @@ class KernelRidgeCV(_GlobalFeatures, _GridSearch, _KernelRidgeBase):
     {_STD_DOC}
     progress : bool or None
         tqdm bar over folds (``None``: shown on a terminal only).
+    width_unit : {"absolute", "median"}
+        ``"median"``: ``widths`` are multiples of the median distance between random
+        pairs of training rows (``width_unit_value_``), so one grid suits any descriptor.
     """
 
     def __init__(self, kernel="laplacian", widths=(1.0, 4.0, 16.0, 64.0, 256.0, 1024.0),
@@ -463,7 +466,7 @@ class AtomwiseKernelRidgeCV(_AtomFeatures, _GridSearch, _KernelRidgeBase):
 
     Parameters
     ----------
-    widths, regularizations, cv, random_state, solver, baseline, progress :
+    widths, regularizations, cv, random_state, solver, baseline, progress, width_unit :
         As in :class:`KernelRidgeCV`.
     {_ATOM_DOC}
     {_STD_DOC}
