@@ -342,7 +342,15 @@ _STD_DOC = """
         this fraction of held-out errors."""
 
 
-class KernelRidgeModel(_GlobalFeatures, _KernelRidgeBase):
+class _FixedHyperparameters:
+    """``fit`` with the given ``width`` and ``regularization`` (no search)."""
+
+    def fit(self, X, y):
+        X = self._as_input(X)
+        return self._fit_fixed(X, y, check_widths(self.width)[0], check_regularizations(self.regularization)[0])
+
+
+class KernelRidgeModel(_GlobalFeatures, _FixedHyperparameters, _KernelRidgeBase):
     __doc__ = f"""Kernel ridge regression with a Gaussian or Laplacian kernel on global features.
 
     Parameters
@@ -370,11 +378,6 @@ class KernelRidgeModel(_GlobalFeatures, _KernelRidgeBase):
         self.baseline = baseline
         self.predictive_std = predictive_std
         self.interval_level = interval_level
-
-    def fit(self, X, y):
-        X = self._as_input(X)
-        width = check_widths(self.width)[0]
-        return self._fit_fixed(X, y, width, check_regularizations(self.regularization)[0])
 
 
 class KernelRidgeCV(_GlobalFeatures, _GridSearch, _KernelRidgeBase):
@@ -428,7 +431,7 @@ _ATOM_DOC = """dtype : {"float64", "float32"}
         Atoms per block in the kernel computation (memory vs. call overhead)."""
 
 
-class AtomwiseKernelRidge(_AtomFeatures, _KernelRidgeBase):
+class AtomwiseKernelRidge(_AtomFeatures, _FixedHyperparameters, _KernelRidgeBase):
     __doc__ = f"""Kernel ridge regression with the atom-by-atom Gaussian kernel on AtomFeatures.
 
     ``K(A, B) = sum over same-element atom pairs of exp(-|x_i - x_k|^2 / (2 width^2))``
@@ -451,10 +454,6 @@ class AtomwiseKernelRidge(_AtomFeatures, _KernelRidgeBase):
         self.baseline = baseline
         self.predictive_std = predictive_std
         self.interval_level = interval_level
-
-    def fit(self, X, y):
-        X = self._as_input(X)
-        return self._fit_fixed(X, y, check_widths(self.width)[0], check_regularizations(self.regularization)[0])
 
 
 class AtomwiseKernelRidgeCV(_AtomFeatures, _GridSearch, _KernelRidgeBase):
