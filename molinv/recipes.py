@@ -43,11 +43,17 @@ MODELS = ("kernel", "linear", "baseline", "large")
 #: between training rows (same-element atoms for atom-centred descriptors).
 KERNEL_WIDTHS = (0.25, 0.5, 1.0, 2.0, 4.0, 8.0, 16.0, 32.0, 64.0)
 KERNEL_REGULARIZATIONS = (1e-10, 1e-8, 1e-6, 1e-4, 1e-3, 1e-2, 1e-1, 1.0)
+#: Cross-validation grid of the 'large' model (one pass over the training set per width),
+#: and its landmarks: molecules for global descriptors, atoms per element for 'atoms'.
+LARGE_WIDTHS = (0.5, 1.0, 2.0, 4.0)
+LARGE_REGULARIZATIONS = (1e-8, 1e-6, 1e-4, 1e-2)
+LARGE_LANDMARKS = 2000
 MODEL_HELP = {
     "kernel": "kernel ridge, width and regularisation by 5-fold cross-validation",
     "linear": "ridge regression on the descriptor",
     "baseline": "per-element energies only (least squares on element counts)",
-    "large": "Nystrom-approximated kernel ridge, for tens of thousands of molecules",
+    "large": "Nystrom-approximated kernel ridge (landmark molecules, or landmark atoms per element for 'atoms'), "
+             "width and regularisation by 5-fold cross-validation; for tens of thousands of molecules",
 }
 
 
@@ -78,9 +84,9 @@ def make_regressor(name: str, per_atom: bool, progress: bool | None = None):
     if name == "baseline":
         return models.ElementBaseline()
     if name == "large":
-        if per_atom:
-            raise RecipeError("model 'large' takes global descriptors; for 'atoms' use 'kernel'")
-        return models.NystromRidge(progress=progress)
+        return models.NystromRidgeCV("atomwise" if per_atom else "laplacian", widths=LARGE_WIDTHS,
+                                     regularizations=LARGE_REGULARIZATIONS, n_landmarks=LARGE_LANDMARKS,
+                                     progress=progress)
     raise RecipeError(f"unknown model {name!r}; choose one of: {', '.join(MODELS)}")
 
 

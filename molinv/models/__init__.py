@@ -4,7 +4,7 @@
 * :class:`KernelRidgeModel`, :class:`KernelRidgeCV` - Gaussian/Laplacian kernel ridge on global features.
 * :class:`LinearRidge` - ridge on global features or per-element atom sums.
 * :class:`AtomwiseKernelRidge`, :class:`AtomwiseKernelRidgeCV` - atom-by-atom kernel on AtomFeatures.
-* :class:`NystromRidge` - landmark (Nystrom) approximation of either kernel, for large training sets.
+* :class:`NystromRidge`, :class:`NystromRidgeCV` - landmark (Nystrom) approximation of either kernel, for large training sets.
 
 Model files: :func:`save_model` / :func:`load_model` (npz + JSON, no pickle).
 
@@ -16,7 +16,7 @@ from molinv.models.inputs import CountedFeatures, ModelInputError, with_element_
 from molinv.models.kernel_ridge import AtomwiseKernelRidge, AtomwiseKernelRidgeCV, KernelRidgeCV, KernelRidgeModel
 from molinv.models.linear import LinearRidge
 from molinv.models.modelfile import ModelFileError, load_model, save_model
-from molinv.models.nystrom import NystromRidge
+from molinv.models.nystrom import NystromRidge, NystromRidgeCV
 
 __all__ = [
     "AtomwiseKernelRidge",
@@ -29,6 +29,7 @@ __all__ = [
     "ModelFileError",
     "ModelInputError",
     "NystromRidge",
+    "NystromRidgeCV",
     "load_model",
     "save_model",
     "with_element_counts",

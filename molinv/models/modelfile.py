@@ -32,7 +32,7 @@ from molinv.models.baseline import ElementBaseline
 from molinv.models.inputs import fingerprint
 from molinv.models.kernel_ridge import AtomwiseKernelRidge, AtomwiseKernelRidgeCV, KernelRidgeCV, KernelRidgeModel
 from molinv.models.linear import LinearRidge
-from molinv.models.nystrom import NystromRidge
+from molinv.models.nystrom import NystromRidge, NystromRidgeCV
 
 FORMAT_NAME = "molinv-model"
 FORMAT_VERSION = 1
@@ -50,6 +50,7 @@ MODEL_CLASSES = {
         AtomwiseKernelRidgeCV,
         LinearRidge,
         NystromRidge,
+        NystromRidgeCV,
     )
 }
 

@@ -1,0 +1,42 @@
+"""Cross-validated Nystrom ridge: with every training point a landmark it is exact kernel ridge
+(Williams & Seeger, NIPS 13, 2001), so its search must pick what scikit-learn's GridSearchCV over
+KernelRidge picks on the same folds and grid, and predict what KernelRidge predicts."""
+
+import numpy as np
+import pytest
+from sklearn.kernel_ridge import KernelRidge
+from sklearn.model_selection import GridSearchCV, KFold
+
+from molinv.models import NystromRidgeCV, load_model, save_model
+from tests.test_models_nystrom import synthetic
+
+WIDTHS = (0.4, 0.8, 1.6, 3.2)
+REGULARIZATIONS = (1e-4, 1e-3, 1e-2, 1e-1)
+
+
+@pytest.mark.parametrize("kind, name", [("gaussian", "rbf"), ("laplacian", "laplacian")])
+def test_all_landmarks_choice_equals_grid_search(kind, name):
+    X, y = synthetic(n=160, seed=3)
+    model = NystromRidgeCV(kind, widths=WIDTHS, regularizations=REGULARIZATIONS, cv=4, width_unit="absolute",
+                           n_landmarks=10_000, baseline=None, random_state=5, predictive_std=False).fit(X[:120], y[:120])
+    gamma = [1 / (2 * w**2) for w in WIDTHS] if kind == "gaussian" else [1 / w for w in WIDTHS]
+    search = GridSearchCV(KernelRidge(kernel=name), {"alpha": list(REGULARIZATIONS), "gamma": gamma},
+                          cv=KFold(4, shuffle=True, random_state=5), scoring="neg_mean_absolute_error").fit(X[:120], y[:120])
+    assert model.width_ == pytest.approx(WIDTHS[gamma.index(search.best_params_["gamma"])])
+    assert model.regularization_ == pytest.approx(search.best_params_["alpha"])
+    # Same validation MAE per grid point (GridSearchCV's cv_results_ loop alpha outer, gamma inner).
+    reference = -search.cv_results_["mean_test_score"].reshape(len(REGULARIZATIONS), len(WIDTHS)).T
+    np.testing.assert_allclose(model.cv_mae_, reference, rtol=1e-5)
+    np.testing.assert_allclose(model.predict(X[120:]), search.predict(X[120:]), atol=1e-6)
+
+
+def test_few_landmarks_saves_and_reloads(tmp_path):
+    X, y = synthetic(n=300, seed=4)
+    model = NystromRidgeCV("gaussian", n_landmarks=60, cv=3, baseline="mean").fit(X[:250], y[:250])
+    assert model.cv_mae_.shape == (4, 4)
+    path = save_model(tmp_path / "model.npz", model)
+    loaded, _ = load_model(path)
+    mean, std = model.predict(X[250:], return_std=True)
+    loaded_mean, loaded_std = loaded.predict(X[250:], return_std=True)
+    np.testing.assert_array_equal(mean, loaded_mean)
+    np.testing.assert_array_equal(std, loaded_std)
