@@ -45,7 +45,7 @@ KERNEL_WIDTHS = (0.25, 0.5, 1.0, 2.0, 4.0, 8.0, 16.0, 32.0, 64.0)
 KERNEL_REGULARIZATIONS = (1e-10, 1e-8, 1e-6, 1e-4, 1e-3, 1e-2, 1e-1, 1.0)
 #: Cross-validation grid of the 'large' model (one pass over the training set per width),
 #: and its landmarks: molecules for global descriptors, atoms per element for 'atoms'.
-LARGE_WIDTHS = (0.5, 1.0, 2.0, 4.0)
+LARGE_WIDTHS = (1.0, 2.0, 4.0, 8.0)
 LARGE_REGULARIZATIONS = (1e-8, 1e-6, 1e-4, 1e-2)
 LARGE_LANDMARKS = 2000
 MODEL_HELP = {
@@ -55,6 +55,10 @@ MODEL_HELP = {
     "large": "Nystrom-approximated kernel ridge (landmark molecules, or landmark atoms per element for 'atoms'), "
              "width and regularisation by 5-fold cross-validation; for tens of thousands of molecules",
 }
+
+
+#: Model-file extra arrays of the descriptor (for example a projection basis) carry this prefix.
+DESCRIPTOR_ARRAY_PREFIX = "descriptor."
 
 
 class RecipeError(ValueError):
@@ -166,6 +170,7 @@ class EnergyModel(RegressorMixin, BaseEstimator):
         """Write the model file; energies in eV, lengths in Angstrom."""
         check_is_fitted(self, "regressor_")
         numbers, arrays = self.applicability_.state()
+        arrays.update({DESCRIPTOR_ARRAY_PREFIX + name: a for name, a in self.descriptor_.fitted_arrays().items()})
         metadata = {"descriptor": self.descriptor_.settings(), "units": {"energy": "eV", "length": "Angstrom"},
                     "target": target, "training": training or {}, "applicability": numbers}
         return save_model(path, self.regressor_, metadata, extra_arrays=arrays)
@@ -174,8 +179,10 @@ class EnergyModel(RegressorMixin, BaseEstimator):
     def load(cls, path) -> tuple["EnergyModel", dict]:
         """Rebuild a saved model; returns ``(model, metadata)``."""
         regressor, metadata = load_model(path)
-        descriptor = descriptor_from_settings(metadata["descriptor"])
+        extra = read_extra_arrays(path)
+        descriptor = descriptor_from_settings(metadata["descriptor"], {
+            name[len(DESCRIPTOR_ARRAY_PREFIX):]: a for name, a in extra.items() if name.startswith(DESCRIPTOR_ARRAY_PREFIX)})
         model = cls(descriptor, regressor)
         model.descriptor_, model.regressor_ = descriptor, regressor
-        model.applicability_ = ApplicabilityCheck.from_state(metadata["applicability"], read_extra_arrays(path))
+        model.applicability_ = ApplicabilityCheck.from_state(metadata["applicability"], extra)
         return model, metadata

@@ -48,9 +48,10 @@ across structural and alchemical space", Phys. Chem. Chem. Phys. 18, 13754
 from __future__ import annotations
 
 import numpy as np
+import scipy.linalg
 from ase import Atoms
 
-from .base import DescriptorError, MoleculeDescriptor
+from .base import DescriptorError, MoleculeDescriptor, array_digest
 
 
 def real_spherical_harmonics(unit_vectors: np.ndarray, max_degree: int) -> np.ndarray:
@@ -250,6 +251,40 @@ def channel_products(coefficients: np.ndarray, max_degree: int, cross_products: 
     return np.concatenate(blocks, axis=1)
 
 
+def principal_bases(vectors: np.ndarray, numbers: np.ndarray, elements, n_components: int):
+    """Per element, the ``n_components`` leading principal directions of its atoms' vectors.
+
+    Returns ``(bases, kept)``: ``bases[e]`` is ``(d, n_components)`` with orthonormal
+    columns (zero columns where the element has fewer independent directions), the
+    leading eigenvectors of the centred scatter matrix ``A^T A`` (found from ``A A^T``
+    when there are fewer atoms than entries: same nonzero spectrum, directions
+    ``A^T v / sqrt(lambda)``); ``kept[e]`` is the fraction of the variance they hold
+    (1 for an element with no spread).
+    """
+    d = vectors.shape[1]
+    bases, kept = np.zeros((len(elements), d, n_components)), np.ones(len(elements))
+    for e, z in enumerate(elements):
+        rows = vectors[numbers == z]
+        if len(rows) < 2:
+            continue
+        centred = rows - rows.mean(axis=0)
+        keep = min(n_components, *centred.shape)
+        by_atoms = centred.shape[0] < d
+        scatter = centred @ centred.T if by_atoms else centred.T @ centred
+        total = float(np.trace(scatter))
+        if not total > 0:
+            continue
+        eigenvalues, eigenvectors = scipy.linalg.eigh(scatter, subset_by_index=[len(scatter) - keep, len(scatter) - 1])
+        eigenvalues, eigenvectors = eigenvalues[::-1], eigenvectors[:, ::-1]
+        positive = eigenvalues > 1e-12 * eigenvalues[0]
+        eigenvalues, eigenvectors = eigenvalues[positive], eigenvectors[:, positive]
+        if by_atoms:
+            eigenvectors = centred.T @ eigenvectors / np.sqrt(eigenvalues)
+        bases[e, :, : len(eigenvalues)] = eigenvectors
+        kept[e] = eigenvalues.sum() / total
+    return bases, kept
+
+
 class AtomWaveletInvariants(MoleculeDescriptor):
     """Per-atom rotation invariants of element densities filtered by solid harmonic wavelets.
 
@@ -283,6 +318,17 @@ class AtomWaveletInvariants(MoleculeDescriptor):
     normalize : bool
         Scale each atom's vector to unit Euclidean length (atoms with no
         neighbours keep a zero vector), for dot-product kernels.
+    n_components : int or None
+        Keep only the projections of each atom's vector on the ``n_components``
+        leading principal directions of its element's vectors (centred, fitted on
+        up to ``basis_molecules`` of the molecules given to ``fit``, drawn with a
+        fixed seed; labels play no part). Distances between atoms of the same
+        element, all the atom-by-atom kernel uses, are kept up to the discarded
+        variance (``kept_variance_`` per element). ``None`` keeps the full vector;
+        the full vector of QM9's five elements has 2,325 entries, too many to hold
+        for 100,000 molecules (about 33 GB), which is what the projection is for.
+    basis_molecules : int
+        How many fitting molecules (at most) the principal directions come from.
     elements, n_jobs, chunk_size, progress
         See :class:`MoleculeDescriptor`.
 
@@ -311,6 +357,8 @@ class AtomWaveletInvariants(MoleculeDescriptor):
         scale_exponent: float = 3.0,
         cross_products: bool = True,
         normalize: bool = False,
+        n_components: int | None = None,
+        basis_molecules: int = 2000,
         elements=None,
         n_jobs: int = 1,
         chunk_size: int = 200,
@@ -325,6 +373,8 @@ class AtomWaveletInvariants(MoleculeDescriptor):
         self.scale_exponent = scale_exponent
         self.cross_products = cross_products
         self.normalize = normalize
+        self.n_components = n_components
+        self.basis_molecules = basis_molecules
         self.elements = elements
         self.n_jobs = n_jobs
         self.chunk_size = chunk_size
@@ -341,8 +391,12 @@ class AtomWaveletInvariants(MoleculeDescriptor):
             raise DescriptorError(f"atom_width must be >= 0 Angstrom, got {self.atom_width!r}")
         if self.cutoff is not None and self.cutoff <= 0:
             raise DescriptorError(f"cutoff must be positive (Angstrom) or None, got {self.cutoff!r}")
+        if self.n_components is not None and (int(self.n_components) != self.n_components or self.n_components < 1):
+            raise DescriptorError(f"n_components must be a positive integer or None, got {self.n_components!r}")
+        if int(self.basis_molecules) != self.basis_molecules or self.basis_molecules < 1:
+            raise DescriptorError(f"basis_molecules must be a positive integer, got {self.basis_molecules!r}")
 
-    def _fit_features(self, molecules: list[Atoms]) -> None:
+    def _fit_layout(self) -> None:
         self.widths_ = geometric_widths(self.min_width, self.max_width, int(self.n_scales))
         self.scale_weights_ = (float(self.min_width) / self.widths_) ** float(self.scale_exponent)
         self.channel_of_element_ = {z: index for index, z in enumerate(self.elements_)}
@@ -350,7 +404,47 @@ class AtomWaveletInvariants(MoleculeDescriptor):
         pairs = n * (n + 1) // 2 if self.cross_products else n
         self.n_features_ = (int(self.max_degree) + 1) * pairs
 
+    def _fit_features(self, molecules: list[Atoms]) -> None:
+        self._fit_layout()
+        self.basis_ = None
+        if self.n_components is None:
+            return
+        rng = np.random.default_rng(0)
+        picked = rng.choice(len(molecules), min(len(molecules), int(self.basis_molecules)), replace=False)
+        sample = [molecules[i] for i in np.sort(picked)]
+        vectors = np.vstack([self._full_vectors(atoms) for atoms in sample])
+        numbers = np.concatenate([atoms.numbers for atoms in sample])
+        self.basis_, self.kept_variance_ = principal_bases(vectors, numbers, self.elements_, int(self.n_components))
+
+    def fitted_arrays(self) -> dict[str, np.ndarray]:
+        return {} if self.basis_ is None else {"basis": self.basis_}
+
+    def _fitted_state(self) -> dict:
+        if self.basis_ is None:
+            return {}
+        return {"basis_sha256": array_digest(self.basis_), "kept_variance": [float(v) for v in self.kept_variance_]}
+
+    def _restore_fitted_state(self, state: dict, arrays: dict[str, np.ndarray]) -> None:
+        self._fit_layout()
+        self.basis_ = None
+        if self.n_components is None:
+            return
+        basis = arrays.get("basis")
+        if basis is None or array_digest(basis) != state.get("basis_sha256"):
+            raise DescriptorError("the projection basis of these atom-centred invariants is missing or altered")
+        self.basis_, self.kept_variance_ = np.asarray(basis, dtype=float), np.asarray(state["kept_variance"])
+
     def _describe_one(self, atoms: Atoms) -> np.ndarray:
+        values = self._full_vectors(atoms)
+        if self.basis_ is None:
+            return values
+        projected = np.empty((len(atoms), self.basis_.shape[2]))
+        for z in np.unique(atoms.numbers):
+            rows = atoms.numbers == z
+            projected[rows] = values[rows] @ self.basis_[self.channel_of_element_[int(z)]]
+        return projected
+
+    def _full_vectors(self, atoms: Atoms) -> np.ndarray:
         channels = np.array([self.channel_of_element_[int(z)] for z in atoms.numbers])
         coefficients = filtered_coefficients(
             atoms.positions, channels, len(self.elements_), self.widths_,

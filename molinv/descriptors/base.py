@@ -9,6 +9,8 @@ tqdm progress bar over chunks.
 
 from __future__ import annotations
 
+import hashlib
+
 from dataclasses import dataclass
 from typing import Sequence
 
@@ -192,11 +194,17 @@ class MoleculeDescriptor(TransformerMixin, BaseEstimator):
         return {"descriptor": type(self).__name__, "params": _jsonable(params), **self._fitted_state()}
 
     def _fitted_state(self) -> dict:
-        """Data-dependent fitted values to store beside the parameters; default none."""
+        """Data-dependent fitted values to store beside the parameters (JSON); default none.
+        Arrays go to :meth:`fitted_arrays`, with their digest here."""
         return {}
 
-    def _restore_fitted_state(self, state: dict) -> None:
-        """Inverse of :meth:`_fitted_state`; by default the features depend on settings only."""
+    def fitted_arrays(self) -> dict[str, np.ndarray]:
+        """Fitted arrays too large for the settings (a model file stores them beside); default none."""
+        return {}
+
+    def _restore_fitted_state(self, state: dict, arrays: dict[str, np.ndarray]) -> None:
+        """Inverse of :meth:`_fitted_state` and :meth:`fitted_arrays`; by default the features
+        depend on settings only."""
         self._fit_features([])
 
 
@@ -207,8 +215,15 @@ def _subclasses(cls) -> list[type]:
     return found
 
 
-def descriptor_from_settings(settings: dict) -> MoleculeDescriptor:
-    """Rebuild a fitted descriptor from :meth:`MoleculeDescriptor.settings` (as stored in a model file)."""
+def array_digest(array: np.ndarray) -> str:
+    """SHA-256 of an array's float64 bytes and shape, to tie stored arrays to their settings."""
+    values = np.ascontiguousarray(array, dtype=np.float64)
+    return hashlib.sha256(str(values.shape).encode() + values.tobytes()).hexdigest()
+
+
+def descriptor_from_settings(settings: dict, arrays: dict[str, np.ndarray] | None = None) -> MoleculeDescriptor:
+    """Rebuild a fitted descriptor from :meth:`MoleculeDescriptor.settings` and
+    :meth:`MoleculeDescriptor.fitted_arrays` (as stored in a model file)."""
     import molinv.descriptors  # noqa: F401  (registers every descriptor class)
 
     classes = {cls.__name__: cls for cls in _subclasses(MoleculeDescriptor)}
@@ -222,7 +237,8 @@ def descriptor_from_settings(settings: dict) -> MoleculeDescriptor:
         raise DescriptorError(f"settings do not fit {name} in this molinv: {error}") from None
     descriptor.elements_ = element_numbers(params["elements"])
     descriptor._check_settings()
-    descriptor._restore_fitted_state({k: v for k, v in settings.items() if k not in ("descriptor", "params")})
+    state = {k: v for k, v in settings.items() if k not in ("descriptor", "params")}
+    descriptor._restore_fitted_state(state, arrays or {})
     return descriptor
 
 

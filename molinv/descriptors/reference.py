@@ -100,7 +100,7 @@ class CoulombMatrix(MoleculeDescriptor):
     def _fitted_state(self):
         return {"max_atoms": self.max_atoms_}
 
-    def _restore_fitted_state(self, state):
+    def _restore_fitted_state(self, state, arrays):
         self.max_atoms_ = int(state["max_atoms"])
 
     def _check_elements(self, molecules):
@@ -221,7 +221,7 @@ class BagOfBonds(MoleculeDescriptor):
     def _fitted_state(self):
         return {"bag_sizes": dict(self.bag_sizes_)}
 
-    def _restore_fitted_state(self, state):
+    def _restore_fitted_state(self, state, arrays):
         self.bag_sizes_ = {key: int(state["bag_sizes"][key]) for key in self._bag_order()}
 
     def _check_elements(self, molecules):
