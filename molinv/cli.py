@@ -137,6 +137,10 @@ def add_recipe_options(parser, several: bool = False) -> None:
     parser.add_argument("--cache", type=Path, default=None,
                         help="folder of cached descriptor values (default: none; reruns then recompute)")
     parser.add_argument("--jobs", type=int, default=1, help="worker processes for describing molecules")
+    parser.add_argument("--atom-components", type=int, default=None, metavar="N",
+                        help="for 'atoms' only: keep N principal directions per element of each atom's vector "
+                             "(fitted on the molecules, no labels) instead of all 2,325 entries; makes tens of "
+                             "thousands of molecules fit in memory and the kernels faster (default: keep all)")
 
 
 def feature_store(args):
@@ -145,10 +149,19 @@ def feature_store(args):
     return FeatureStore(args.cache) if args.cache else None
 
 
+def descriptor_overrides(descriptor_name: str, args) -> dict:
+    from .recipes import DESCRIPTORS
+
+    takes_components = DESCRIPTORS[descriptor_name][1] == "AtomWaveletInvariants"
+    given = getattr(args, "atom_components", None)
+    return {"n_components": given} if given is not None and takes_components else {}
+
+
 def energy_model(descriptor_name: str, model_name: str, args):
     from .recipes import EnergyModel, make_descriptor, make_regressor
 
-    descriptor = make_descriptor(descriptor_name, n_jobs=args.jobs, progress=True)
+    overrides = descriptor_overrides(descriptor_name, args)
+    descriptor = make_descriptor(descriptor_name, n_jobs=args.jobs, progress=True, **overrides)
     return EnergyModel(descriptor, make_regressor(model_name, descriptor.per_atom, progress=True), feature_store(args))
 
 
@@ -161,7 +174,8 @@ def run_describe(args) -> int:
 
     result = read_input(args, require_energy=False)
     report_rejected(result)
-    descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, progress=True).fit(result.molecules)
+    overrides = descriptor_overrides(args.descriptor, args)
+    descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, progress=True, **overrides).fit(result.molecules)
     features = describe(descriptor, result.molecules, feature_store(args))
     arrays = {"names": np.array([str(a.info["name"]) for a in result.molecules]),
               "settings_json": np.array(json.dumps(descriptor.settings()))}

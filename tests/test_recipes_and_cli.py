@@ -89,3 +89,12 @@ def test_cli_fit_predict_and_readable_errors(tmp_path, qm9):
     assert done.returncode == 2
     assert "Traceback" not in done.stderr and len(done.stderr.strip().splitlines()) == 1
     assert "absent.npz" in done.stderr
+
+
+def test_cli_atom_components_reach_the_model_file(tmp_path, qm9):
+    model_path = tmp_path / "model.npz"
+    assert main(["fit", "qm9:60:5", "--descriptor", "atoms", "--model", "linear", "--atom-components", "6",
+                 "--out", str(model_path)]) == 0
+    model, metadata = EnergyModel.load(model_path)
+    assert metadata["descriptor"]["params"]["n_components"] == 6
+    assert model.descriptor_.basis_.shape[2] == 6
