@@ -85,10 +85,10 @@ def test_grid_field_matches_closed_form_and_exact_quadratic_integral():
         fields = density._grid_first_order_fields(positions, weights, axes, scale_width, 0.4, 2)
         cell = np.prod([axis[1] - axis[0] for axis in axes])
         picks = [(3, 7, 5), (len(axes[0]) // 2, len(axes[1]) // 2, len(axes[2]) // 2)]
-        for degree, field in enumerate(fields):
+        for degree, field in enumerate(fields):  # field: (channel, z, x, y)
             points = np.array([[axes[0][i], axes[1][j], axes[2][k]] for i, j, k in picks])
             direct = np.sqrt(np.sum(filtered_density(points, positions, weights, scale_width, 0.4, degree) ** 2, axis=-1))
-            np.testing.assert_allclose(np.array([field[i, j, :, k] for i, j, k in picks]), direct, rtol=1e-5, atol=1e-6 * direct.max())
+            np.testing.assert_allclose(np.array([field[:, k, i, j] for i, j, k in picks]), direct, rtol=1e-5, atol=1e-6 * direct.max())
             # Pair-sum (Laguerre) formula against the grid integral of U^2.
             exact = first_order_quadratic(positions, weights, scale_width, 0.4, degree)
             grid = density._grid_power_integrals(field, [2.0], cell)[0]
