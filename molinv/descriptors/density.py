@@ -198,10 +198,16 @@ def _principal_frame(positions: np.ndarray) -> np.ndarray:
 
 
 def _axis_grid(low: float, high: float, spacing: float) -> np.ndarray:
-    """Points covering ``[low, high]`` with the given spacing, centred on the interval."""
-    count = int(np.ceil((high - low) / spacing)) + 1
-    middle = 0.5 * (low + high)
-    return middle + spacing * (np.arange(count) - 0.5 * (count - 1))
+    """The points ``spacing * n`` (integer ``n``) covering ``[low, high]``.
+
+    A lattice through the origin (the atoms' centroid), not one centred on the
+    interval: as atoms move, the lattice moves with the centroid and only
+    gains or loses points at the margin, where the integrands are small. A
+    re-centred grid would jump by half a spacing whenever its point count
+    changed parity, a jump of the size of the quadrature error. The lattice
+    is symmetric about the origin, so flipping an axis maps it onto itself.
+    """
+    return spacing * np.arange(np.floor(low / spacing), np.ceil(high / spacing) + 1)
 
 
 def _box_axes(positions, width, spacing_factor, padding) -> list[np.ndarray]:
