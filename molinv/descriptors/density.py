@@ -54,7 +54,8 @@ come out of one single-precision matrix product per element and scale.
 Every invariant is unchanged by rotations, reflections (the modulus over
 ``m`` is an O(3) invariant), translations and atom permutations; grid terms
 are so up to the quadrature error. Grids are laid out along the principal
-axes of the atom positions, which keeps boxes small.
+axes of the atom positions, which keeps boxes small, on a lattice through
+the centroid, so that they move with the atoms instead of jumping.
 
 References
 ----------
