@@ -12,7 +12,7 @@ grid up to axis flips, which map the (centred) grid onto itself; what is left
 is float32 rounding in the grid arithmetic, measured at about 1e-7 relative,
 checked at 1e-5. The quadrature error of the grid itself (measured against a
 spacing of 0.3 widths and a margin of 8 widths, on 4 QM9 molecules: at most
-7e-3 relative for first order and 1.1e-2 for second order at the default
+5.3e-3 relative for first order and 6.7e-3 for second order at the default
 spacing 0.8, margin 4; see benchmarks/bench_descriptors_global.py) is checked
 through exact cases below.
 """

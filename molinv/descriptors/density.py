@@ -377,12 +377,14 @@ class DensityScattering(MoleculeDescriptor):
     Angstrom^3, wavelets dimensionless up to their normalised Gaussian).
 
     Accuracy of the grid terms, measured on 4 QM9 molecules against spacing
-    0.3 and margin 8 (benchmarks/bench_descriptors_global.py): at the default
-    spacing 0.8 and margin 4, relative error at most 6.9e-3 (median
-    1.1e-4 for q = 3, 6.5e-4 for q = 0.5, 9e-6 for q = 1) for first order and
-    1.1e-2 (median 1e-5 to 2e-4) for second order; spacing 0.5, margin 6:
-    at most 2.3e-4 and 9.3e-4, about ten times slower. The largest errors
-    come from the cusps of the modulus (``U1`` of degree ``l >= 1`` vanishes
+    0.3 and margin 8 (benchmarks/bench_descriptors_global.py and the same
+    comparison for all channels): at the default spacing 0.8 and margin 4,
+    relative error at most 5.3e-3 (median 4.3e-4 for q = 0.5, 6e-6 for
+    q = 1, 1.6e-4 for q = 3) for first order and 6.7e-3 (median 1.6e-5 to
+    2.6e-4) for second order; spacing 0.5, margin 6: at most 4.0e-4 and
+    1.1e-3, but 4.7 times slower at first order and 14 times slower with
+    second order on all channels. The largest errors come from the cusps of
+    the modulus (``U1`` of degree ``l >= 1`` vanishes
     at isolated points), which no smooth quadrature resolves exactly, and for
     ``q = 0.5`` from the margin (its integrand decays slowest). The ``q = 2``
     first-order terms are exact. Rotations, reflections and translations
