@@ -42,11 +42,20 @@ The first-order modulus is smooth at width ``t_j1`` and the output at width
 ``t2 = sqrt(s_j2^2 + t_j1^2)``, so the convolution maps the ``j1`` grid
 directly onto a coarser output grid (spacing ``grid_spacing * t2``) by
 separable one-dimensional quadrature matrices: no FFT, no fine output grid.
+Only the monomial powers the harmonics use are formed, and only for the
+channels chosen for second order (``second_order_channels``).
+
+Cost (why it is fast enough): every grid is as coarse as its field allows
+(spacing proportional to the width, margin a few widths); atoms of one
+element share their channel weights, so a field is computed once per element
+and the channels are weight combinations of those; harmonics of all degrees
+come out of one single-precision matrix product per element and scale.
 
 Every invariant is unchanged by rotations, reflections (the modulus over
 ``m`` is an O(3) invariant), translations and atom permutations; grid terms
 are so up to the quadrature error. Grids are laid out along the principal
-axes of the atom positions, which keeps boxes small.
+axes of the atom positions, which keeps boxes small, on a lattice through
+the centroid, so that they move with the atoms instead of jumping.
 
 References
 ----------
@@ -162,16 +171,24 @@ def filtered_density(points, positions, weights, scale_width, atom_width, degree
 
 
 def first_order_quadratic(positions, weights, scale_width, atom_width, degree) -> np.ndarray:
-    """Exact ``integral U1[c,j,l]^2 dx`` per channel as a sum over atom pairs (formula in the module docstring)."""
+    """Exact ``integral U1[c,j,l]^2 dx`` per channel as a sum over atom pairs (formula in the module docstring).
+
+    ``degree`` is one degree (result shape ``(n_channels,)``) or a sequence of
+    degrees (shape ``(n_degrees, n_channels)``, one pass over the pairs).
+    """
+    degrees = np.atleast_1d(degree)
     width_squared = scale_width**2 + atom_width**2
     distances_squared = np.sum((positions[:, None, :] - positions[None, :, :]) ** 2, axis=-1)
     argument = distances_squared / (4 * width_squared)
-    kernel = np.exp(-argument) * eval_genlaguerre(degree, 0.5, argument)
-    prefactor = (
-        (2 * degree + 1) / (4 * np.pi) * factorial(degree) * scale_width ** (2 * degree)
-        / (8 * np.pi**1.5 * width_squared ** (degree + 1.5))
+    gaussian = np.exp(-argument)
+    kernels = np.stack([gaussian * eval_genlaguerre(l, 0.5, argument) for l in degrees])
+    factorials = np.array([factorial(l) for l in degrees], dtype=float)
+    prefactors = (
+        (2 * degrees + 1) / (4 * np.pi) * factorials * scale_width ** (2 * degrees)
+        / (8 * np.pi**1.5 * width_squared ** (degrees + 1.5))
     )
-    return prefactor * np.einsum("ic,ik,kc->c", weights, kernel, weights)
+    integrals = prefactors[:, None] * np.einsum("ic,lik,kc->lc", weights, kernels, weights)
+    return integrals if np.ndim(degree) else integrals[0]
 
 
 def _principal_frame(positions: np.ndarray) -> np.ndarray:
@@ -182,10 +199,16 @@ def _principal_frame(positions: np.ndarray) -> np.ndarray:
 
 
 def _axis_grid(low: float, high: float, spacing: float) -> np.ndarray:
-    """Points covering ``[low, high]`` with the given spacing, centred on the interval."""
-    count = int(np.ceil((high - low) / spacing)) + 1
-    middle = 0.5 * (low + high)
-    return middle + spacing * (np.arange(count) - 0.5 * (count - 1))
+    """The points ``spacing * n`` (integer ``n``) covering ``[low, high]``.
+
+    A lattice through the origin (the atoms' centroid), not one centred on the
+    interval: as atoms move, the lattice moves with the centroid and only
+    gains or loses points at the margin, where the integrands are small. A
+    re-centred grid would jump by half a spacing whenever its point count
+    changed parity, a jump of the size of the quadrature error. The lattice
+    is symmetric about the origin, so flipping an axis maps it onto itself.
+    """
+    return spacing * np.arange(np.floor(low / spacing), np.ceil(high / spacing) + 1)
 
 
 def _box_axes(positions, width, spacing_factor, padding) -> list[np.ndarray]:
@@ -205,89 +228,142 @@ def _power_factors(differences: np.ndarray, width: float, max_power: int) -> np.
     return np.stack([differences**p * gaussian for p in range(max_power + 1)]).astype(GRID_DTYPE)
 
 
-def _grid_first_order_fields(positions, weights, axes, scale_width, atom_width, max_degree) -> list[np.ndarray]:
-    """``U1[c,j,l]`` on a grid for ``l = 0..max_degree``, each of shape ``(nx, ny, n_channels, nz)``.
+@lru_cache(maxsize=None)
+def _harmonics_by_plane(max_degree: int) -> tuple[tuple[tuple[int, int], ...], np.ndarray]:
+    """Solid harmonic coefficients of all degrees ``l <= max_degree`` regrouped by their ``(x, y)`` powers.
+
+    Returns the pairs ``(a, b)`` with ``a + b <= max_degree`` and a tensor
+    ``T[pair, h, c]`` with ``S_h = sum_{a,b,c} T[(a,b), h, c] x^a y^b z^c``
+    for the harmonics ``h`` of all degrees in order (``l = 0``, then the
+    ``2l + 1`` of ``l = 1``, ...).
+    """
+    pairs = tuple((a, b) for a in range(max_degree + 1) for b in range(max_degree + 1 - a))
+    n_harmonics = (max_degree + 1) ** 2
+    tensor = np.zeros((len(pairs), n_harmonics, max_degree + 1))
+    for degree in range(max_degree + 1):
+        exponents, coefficients = solid_harmonic_monomials(degree)
+        for k, (a, b, c) in enumerate(exponents):
+            tensor[pairs.index((a, b)), degree**2 : (degree + 1) ** 2, c] = coefficients[:, k]
+    return pairs, tensor
+
+
+def _weight_groups(weights: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Atoms grouped by equal weight rows (one group per element): ``(order, group_starts, group_weights)``.
+
+    ``order`` lists the atoms group by group; group ``g`` is
+    ``order[group_starts[g]:group_starts[g + 1]]`` with weight row ``group_weights[g]``.
+    """
+    rows: dict[tuple, list[int]] = {}
+    for atom, row in enumerate(map(tuple, weights)):
+        rows.setdefault(row, []).append(atom)
+    order = np.concatenate([np.asarray(atoms) for atoms in rows.values()])
+    group_starts = np.cumsum([0] + [len(atoms) for atoms in rows.values()])
+    return order, group_starts, np.asarray(list(rows), dtype=float)
+
+
+def _grid_first_order_fields(positions, weights, axes, scale_width, atom_width, max_degree) -> np.ndarray:
+    """``U1[c,j,l]`` on a grid, shape ``(max_degree + 1, n_channels, nz, nx, ny)`` (grid in z, x, y order).
 
     Separable evaluation of the closed form: with ``X_a[i,x] = (x - x_i)^a
     exp(-(x - x_i)^2 / (2 t^2))`` and likewise for ``y, z``,
     ``rho_c * psi_{lm} = sum_k coef[m,k] sum_i w_ic X_a Y_b Z_c`` over the
-    monomials ``k = (a, b, c)`` of ``S_lm``: one matrix product per degree
-    whose inner index runs over (monomial, atom).
+    monomials ``k = (a, b, c)`` of ``S_lm``. Atoms with equal weight rows (one
+    group per element) are summed first, in one matrix product per group for
+    the harmonics of all degrees: the inner index runs over (atom, ``x, y``
+    powers), with the coefficients and ``Z_c`` folded into the left factor.
+    The channels are then weight combinations of the group fields (one more
+    product), so the cost hardly grows with the number of channels.
     """
     width = np.hypot(scale_width, atom_width)
+    order, group_starts, group_weights = _weight_groups(weights)
+    positions = positions[order]
     factors = [_power_factors(axis[None, :] - positions[:, d, None], width, max_degree) for d, axis in enumerate(axes)]
-    n_atoms = len(positions)
+    pairs, by_plane = _harmonics_by_plane(max_degree)
+    x_powers, y_powers = (list(powers) for powers in zip(*pairs))
+    degrees = np.repeat(np.arange(max_degree + 1), 2 * np.arange(max_degree + 1) + 1)
+    scales = scale_width**degrees / width ** (2 * degrees) * _gaussian_norm(width)
+    by_plane = (by_plane * scales[None, :, None]).astype(GRID_DTYPE)
     nx, ny, nz = (len(axis) for axis in axes)
-    fields = []
+    n_harmonics = (max_degree + 1) ** 2
+    # (atom, pair, x, y) and (harmonic, z, atom, pair): a group's block of atoms is one product.
+    plane = (factors[0][x_powers].transpose(1, 0, 2)[:, :, :, None] * factors[1][y_powers].transpose(1, 0, 2)[:, :, None, :])
+    plane = plane.reshape(len(order) * len(pairs), nx * ny)
+    depth = np.tensordot(by_plane, factors[2], axes=([2], [0])).transpose(1, 3, 2, 0).reshape(n_harmonics * nz, -1)
+    by_group = np.empty((len(group_weights), n_harmonics * nz, nx * ny), dtype=GRID_DTYPE)
+    for g, (start, stop) in enumerate(zip(group_starts[:-1] * len(pairs), group_starts[1:] * len(pairs))):
+        np.matmul(depth[:, start:stop], plane[start:stop], out=by_group[g])
+    harmonics = (group_weights.T.astype(GRID_DTYPE) @ by_group.reshape(len(group_weights), -1)).reshape(
+        -1, n_harmonics, nz * nx * ny
+    )
+    squares = np.square(harmonics, out=harmonics)
+    moduli = np.stack([squares[:, l**2 : (l + 1) ** 2].sum(axis=1) for l in range(max_degree + 1)])
+    return np.sqrt(moduli, out=moduli).reshape(max_degree + 1, -1, nz, nx, ny)
+
+
+def _grid_power_integrals(modulus: np.ndarray, powers, cell_volume: float, n_grid_axes: int = 3) -> np.ndarray:
+    """``integral modulus^q dx`` for each power, shape ``(n_powers, *modulus.shape[:-n_grid_axes])``.
+
+    The grid axes come last and are contiguous, so numpy sums them pairwise:
+    single-precision rounding stays near 1e-7 relative, far below the
+    quadrature error, and the same whatever the order of the points.
+    """
+    flat = modulus.reshape(*modulus.shape[:-n_grid_axes], -1)
+    special = {0.5: np.sqrt, 1.0: lambda v: v, 2.0: np.square, 3.0: lambda v: v * v * v}
+    return cell_volume * np.stack([np.sum(special[q](flat) if q in special else flat**q, axis=-1) for q in powers]).astype(float)
+
+
+@lru_cache(maxsize=None)
+def _harmonics_by_monomial(max_degree: int) -> tuple[tuple[tuple[int, int, int], ...], np.ndarray]:
+    """The monomials ``x^a y^b z^c`` with ``a + b + c <= max_degree`` (ordered by ``c``, then ``a``, then ``b``)
+    and the coefficients ``C[h, monomial]`` of the solid harmonics of all degrees in order."""
+    monomials = tuple((a, b, c) for c in range(max_degree + 1) for a in range(max_degree + 1 - c)
+                      for b in range(max_degree + 1 - a - c))
+    table = np.zeros(((max_degree + 1) ** 2, len(monomials)))
     for degree in range(max_degree + 1):
         exponents, coefficients = solid_harmonic_monomials(degree)
-        scaled_weights = (weights * (scale_width**degree / width ** (2 * degree) * _gaussian_norm(width))).astype(GRID_DTYPE)
-        # Coefficients folded into the right factor: one product per degree, no
-        # per-monomial temporaries (memory traffic, not arithmetic, is the cost here).
-        plane = np.concatenate(
-            [(factors[0][a][:, :, None] * factors[1][b][:, None, :]).reshape(n_atoms, nx * ny) for a, b, _ in exponents]
-        )
-        depth = np.stack([
-            np.einsum("m,iz,ic->imcz", coefficients[:, k].astype(GRID_DTYPE), factors[2][c], scaled_weights)
-            for k, (_, _, c) in enumerate(exponents)
-        ]).reshape(len(exponents) * n_atoms, -1)
-        harmonics = (plane.T @ depth).reshape(nx * ny, 2 * degree + 1, weights.shape[1] * nz)
-        fields.append(np.sqrt(_sum_of_squares(harmonics, axis=1)).reshape(nx, ny, weights.shape[1], nz))
-    return fields
+        for k, exponent in enumerate(exponents):
+            table[degree**2 : (degree + 1) ** 2, monomials.index(exponent)] = coefficients[:, k]
+    return monomials, table
 
 
-def _sum_of_squares(values: np.ndarray, axis: int) -> np.ndarray:
-    """``sum(values**2, axis)`` without a full-size temporary (the arrays here are the largest in the computation)."""
-    moved = np.moveaxis(values, axis, 0)
-    total = moved[0] ** 2
-    for part in moved[1:]:
-        total += part**2
-    return total
+def _second_order_fields(fields, axes, out_axes, scale_width, max_degree) -> np.ndarray:
+    """Moduli of ``fields * psi_{s,l,m}`` on the output grid, shape ``(max_degree + 1, k, n_out_1 * n_out_0 * n_out_2)``.
 
-
-def _grid_power_integrals(modulus: np.ndarray, powers, cell_volume: float) -> np.ndarray:
-    """``integral modulus^q dx`` for each power, shape ``(n_powers, k)``.
-
-    ``modulus`` has shape ``(n1, n2, k, n3)``: grid axes around the ``k`` fields.
-    """
-    flat = np.moveaxis(modulus, 2, -1).reshape(-1, modulus.shape[2])
-    root = np.sqrt(flat)
-    special = {0.5: lambda: root, 1.0: lambda: flat, 2.0: lambda: flat * flat, 3.0: lambda: flat * flat * flat}
-    return np.stack([cell_volume * np.sum(special[q]() if q in special else flat**q, axis=0, dtype=float) for q in powers])
-
-
-def _second_order_fields(fields, axes, out_axes, scale_width, max_degree) -> list[np.ndarray]:
-    """Moduli of ``fields * psi_{s,l,m}`` on the output grid for ``l = 0..max_degree``.
-
-    ``fields`` has shape ``(nx, ny, k, nz)`` (``k`` fields); the convolution
-    integral is a quadrature on the input grid, one matrix per axis and
-    monomial power, ``K_p[X, x] = (X - x)^p exp(-(X - x)^2 / (2 s^2))``,
-    applied axis by axis as matrix products (x from the left, z from the
-    right, y after one transposition). Outputs have shape ``(n_points, 1, k, 1)``
-    (grid flattened; only integrals are taken).
+    ``fields`` has shape ``(n0, n1, k, n2)`` (``k`` fields on a grid with
+    axes ``axes``); the convolution integral is a quadrature on the input
+    grid, one matrix per axis and monomial power,
+    ``K_p[X, x] = (X - x)^p exp(-(X - x)^2 / (2 s^2))``, applied axis by axis
+    as matrix products (axis 0 from the left, axis 2 from the right, axis 1
+    after one transposition), only for the power triples ``a + b + c <=
+    max_degree`` that the harmonics use; each monomial lands in its own row
+    block, and one more product with the harmonic coefficients gives every
+    harmonic. The moduli over ``m`` do not depend on how the grid axes are
+    labelled (a relabelling is an orthogonal map).
     """
     cell_volume = np.prod([axis[1] - axis[0] for axis in axes])
     kernels = [_power_factors(out[:, None] - axis[None, :], scale_width, max_degree) for axis, out in zip(axes, out_axes)]
-    nx, ny, k, nz = fields.shape
-    n_powers, n_out_x = kernels[0].shape[:2]
-    n_out_y, n_out_z = kernels[1].shape[1], kernels[2].shape[1]
-    along_x = (kernels[0].reshape(-1, nx) @ fields.reshape(nx, -1)).reshape(-1, nz)
-    along_xz = (along_x @ kernels[2].reshape(-1, nz).T).reshape(n_powers, n_out_x, ny, k * n_powers * n_out_z)
-    along_xyz = {}
-    for a in range(n_powers):
-        # Only y powers b <= max_degree - a are needed with x power a.
-        y_first = np.ascontiguousarray(along_xz[a].transpose(1, 0, 2)).reshape(ny, -1)
-        result = (kernels[1][: n_powers - a].reshape(-1, ny) @ y_first).reshape(n_powers - a, n_out_y, n_out_x, k, n_powers, n_out_z)
-        for b in range(n_powers - a):
-            along_xyz[a, b] = result[b]
-    moduli = []
-    for degree in range(max_degree + 1):
-        exponents, coefficients = solid_harmonic_monomials(degree)
-        monomials = np.stack([along_xyz[a, b][:, :, :, c, :].transpose(0, 1, 3, 2) for a, b, c in exponents])
-        harmonics = (coefficients.astype(GRID_DTYPE) @ monomials.reshape(len(exponents), -1)).reshape(2 * degree + 1, -1, k)
-        scale = cell_volume * _gaussian_norm(scale_width) / scale_width**degree
-        moduli.append((scale * np.sqrt(_sum_of_squares(harmonics, axis=0)))[:, None, :, None])
-    return moduli
+    n0, n1, k, n2 = fields.shape
+    n_powers = max_degree + 1
+    n_out = [kernel.shape[1] for kernel in kernels]
+    monomials, coefficients = _harmonics_by_monomial(max_degree)
+    by_monomial = np.empty((len(monomials), n_out[1], n_out[0] * k * n_out[2]), dtype=GRID_DTYPE)
+    along_0 = (kernels[0].reshape(-1, n0) @ fields.reshape(n0, -1)).reshape(-1, n2)  # rows (a, X0, x1, field)
+    rows_per_power = n_out[0] * n1 * k
+    row = 0
+    for c in range(n_powers):
+        # Powers a <= max_degree - c are a prefix of the rows.
+        along_02 = (along_0[: (n_powers - c) * rows_per_power] @ kernels[2][c].T).reshape(n_powers - c, n_out[0], n1, -1)
+        for a in range(n_powers - c):
+            axis_1_first = np.ascontiguousarray(along_02[a].transpose(1, 0, 2)).reshape(n1, -1)
+            n_b = n_powers - a - c
+            np.matmul(kernels[1][:n_b].reshape(-1, n1), axis_1_first, out=by_monomial[row : row + n_b].reshape(-1, axis_1_first.shape[1]))
+            row += n_b
+    harmonics = coefficients.astype(GRID_DTYPE) @ by_monomial.reshape(len(monomials), -1)
+    squares = np.square(harmonics, out=harmonics)
+    moduli = np.stack([squares[l**2 : (l + 1) ** 2].sum(axis=0) for l in range(n_powers)])
+    scales = cell_volume * _gaussian_norm(scale_width) / scale_width ** np.arange(n_powers)
+    moduli = np.sqrt(moduli, out=moduli) * scales[:, None].astype(GRID_DTYPE)
+    return moduli.reshape(n_powers, n_out[1] * n_out[0], k, n_out[2]).transpose(0, 2, 1, 3).reshape(n_powers, k, -1)
 
 
 class DensityScattering(MoleculeDescriptor):
@@ -300,17 +376,21 @@ class DensityScattering(MoleculeDescriptor):
     :meth:`get_feature_names_out`. Units: Angstrom^(3-3q) (densities per
     Angstrom^3, wavelets dimensionless up to their normalised Gaussian).
 
-    Accuracy of the grid terms, measured on 3 QM9 molecules against spacing
-    0.3 and margin 8 (benchmarks/bench_descriptors_global.py): at the default
-    spacing 0.5 and margin 6, relative error at most 1.0e-3 (median 3e-6)
-    for first order and 4.1e-3 (median 5e-5) for second order; spacing 0.7,
-    margin 5: 6.7e-3 and 1.4e-2. The largest errors come from the cusps of
-    the modulus (``U1`` of degree ``l >= 1`` vanishes like ``|x - r_i|^l``
-    at isolated atoms), which no smooth quadrature resolves exactly. The
-    ``q = 2`` first-order terms are exact. Rotations, reflections and
-    translations change grid terms only by float32 rounding (about 1e-7),
-    except for molecules with degenerate principal axes (methane: about 2e-3,
-    the quadrature error).
+    Accuracy of the grid terms, measured on 4 QM9 molecules against spacing
+    0.3 and margin 8 (benchmarks/bench_descriptors_global.py and the same
+    comparison for all channels): at the default spacing 0.8 and margin 4,
+    relative error at most 5.3e-3 (median 4.3e-4 for q = 0.5, 6e-6 for
+    q = 1, 1.6e-4 for q = 3) for first order and 6.7e-3 (median 1.6e-5 to
+    2.6e-4) for second order; spacing 0.5, margin 6: at most 4.0e-4 and
+    1.1e-3, but 4.7 times slower at first order and 14 times slower with
+    second order on all channels. The largest errors come from the cusps of
+    the modulus (``U1`` of degree ``l >= 1`` vanishes
+    at isolated points), which no smooth quadrature resolves exactly, and for
+    ``q = 0.5`` from the margin (its integrand decays slowest). The ``q = 2``
+    first-order terms are exact. Rotations, reflections and translations
+    change grid terms only by float32 rounding (about 1e-7), except for
+    molecules with degenerate principal axes (methane: about 2e-3, the
+    quadrature error).
 
     Parameters
     ----------
@@ -330,6 +410,10 @@ class DensityScattering(MoleculeDescriptor):
         Powers ``q`` of the second-order moduli.
     channels : sequence of str
         Density channels, from ``"charge"``, ``"valence"``, ``"core"``, ``"elements"``.
+    second_order_channels : sequence of str or None
+        The channels (a subset of ``channels``) whose first-order moduli are
+        filtered again; ``None``: all of ``channels``. Second-order cost grows
+        in proportion to their number.
     grid_spacing : float
         Grid spacing in units of the width of the field being integrated.
     padding : float
@@ -341,8 +425,8 @@ class DensityScattering(MoleculeDescriptor):
     """
 
     def __init__(self, n_scales=3, max_degree=2, min_width=0.6, atom_width=0.4, powers=(0.5, 1.0, 2.0, 3.0),
-                 second_order=True, second_order_powers=(1.0, 2.0), channels=CHANNELS, grid_spacing=0.5,
-                 padding=6.0, elements=None, n_jobs=1, chunk_size=64, progress=None):
+                 second_order=True, second_order_powers=(1.0, 2.0), channels=CHANNELS, second_order_channels=None,
+                 grid_spacing=0.8, padding=4.0, elements=None, n_jobs=1, chunk_size=64, progress=None):
         self.n_scales = n_scales
         self.max_degree = max_degree
         self.min_width = min_width
@@ -351,6 +435,7 @@ class DensityScattering(MoleculeDescriptor):
         self.second_order = second_order
         self.second_order_powers = second_order_powers
         self.channels = channels
+        self.second_order_channels = second_order_channels
         self.grid_spacing = grid_spacing
         self.padding = padding
         self.elements = elements
@@ -368,18 +453,31 @@ class DensityScattering(MoleculeDescriptor):
         unknown = set(self.channels) - set(CHANNELS)
         if unknown or not len(self.channels):
             raise DescriptorError(f"channels must be a non-empty subset of {CHANNELS}, got {list(self.channels)}")
+        if self.second_order_channels is not None and (
+            not len(self.second_order_channels) or set(self.second_order_channels) - set(self.channels)
+        ):
+            raise DescriptorError(
+                f"second_order_channels must be a non-empty subset of channels {list(self.channels)}, "
+                f"got {list(self.second_order_channels)}"
+            )
 
     def _scale_widths(self) -> np.ndarray:
         return self.min_width * 2.0 ** np.arange(self.n_scales)
 
-    def _channel_names(self) -> list[str]:
+    def _channel_names(self, channels=None) -> list[str]:
+        """Names of the density columns of ``channels`` (default: all), ``"elements"`` expanded."""
         names = []
-        for channel in self.channels:
+        for channel in self.channels if channels is None else channels:
             if channel == "elements":
                 names.extend(chemical_symbols[z] for z in self.elements_)
             else:
                 names.append(channel)
         return names
+
+    def _second_order_columns(self) -> list[int]:
+        """Positions of the second-order channels among the density columns."""
+        names = self._channel_names()
+        return [names.index(name) for name in self._channel_names(self.second_order_channels)]
 
     def get_feature_names_out(self, input_features=None):
         names = []
@@ -388,6 +486,7 @@ class DensityScattering(MoleculeDescriptor):
         for q in self.powers:
             names += [f"q{q:g}_j{j}_l{l}_{c}" for j in range(self.n_scales) for l in degrees for c in channels]
         if self.second_order:
+            channels = self._channel_names(self.second_order_channels)
             for q in self.second_order_powers:
                 for j1 in range(self.n_scales):
                     for j2 in range(j1 + 1, self.n_scales):
@@ -403,20 +502,18 @@ class DensityScattering(MoleculeDescriptor):
         second = []
         for j, scale_width in enumerate(self._scale_widths()):
             width = np.hypot(scale_width, self.atom_width)
-            for l in range(n_degrees):
-                exact = first_order_quadratic(positions, weights, scale_width, self.atom_width, l)
-                first[[k for k, q in enumerate(self.powers) if q == 2], j, l] = exact
+            exact = first_order_quadratic(positions, weights, scale_width, self.atom_width, range(n_degrees))
+            first[[k for k, q in enumerate(self.powers) if q == 2], j] = exact
             if not grid_powers and not (self.second_order and j < self.n_scales - 1):
                 continue
             axes = _box_axes(positions, width, self.grid_spacing, self.padding)
             fields = _grid_first_order_fields(positions, weights, axes, scale_width, self.atom_width, self.max_degree)
             cell_volume = np.prod([axis[1] - axis[0] for axis in axes])
             grid_index = [k for k, q in enumerate(self.powers) if q != 2]
-            for l, field in enumerate(fields):
-                if grid_powers:
-                    first[grid_index, j, l] = _grid_power_integrals(field, grid_powers, cell_volume)
+            if grid_powers:
+                first[grid_index, j] = _grid_power_integrals(fields, grid_powers, cell_volume)
             if self.second_order and j < self.n_scales - 1:
-                second.append(self._second_order(positions, np.stack(fields, axis=2), axes, j))
+                second.append(self._second_order(positions, fields[:, self._second_order_columns()], axes, j))
         pieces = [first.ravel()]
         if self.second_order and second:
             stacked = np.concatenate(second, axis=1)  # (n_powers, pairs, l1, l2, channels)
@@ -426,17 +523,19 @@ class DensityScattering(MoleculeDescriptor):
     def _second_order(self, positions, fields, axes, j1) -> np.ndarray:
         """Second-order integrals for all ``j2 > j1``, shape ``(n_powers, n_j2, l1, l2, channels)``."""
         input_width = np.hypot(self.min_width * 2.0**j1, self.atom_width)
-        nx, ny, n_degrees, n_channels, nz = fields.shape
-        flat_fields = fields.reshape(nx, ny, n_degrees * n_channels, nz)
+        n_degrees, n_channels, nz, nx, ny = fields.shape
+        # Fields ordered (l1, channel), between the second and third grid axes; the
+        # moduli over m do not depend on the order of the axes (an orthogonal map).
+        flat_fields = fields.reshape(-1, nz, nx, ny).transpose(1, 2, 0, 3).copy()
+        axes = (axes[2], axes[0], axes[1])
         results = []
         for scale_width in self._scale_widths()[j1 + 1 :]:
             out_width = np.hypot(scale_width, input_width)
             out_axes = _box_axes(positions, out_width, self.grid_spacing, self.padding)
+            out_axes = (out_axes[2], out_axes[0], out_axes[1])
             moduli = _second_order_fields(flat_fields, axes, out_axes, scale_width, self.max_degree)
             cell_volume = np.prod([axis[1] - axis[0] for axis in out_axes])
-            per_degree = [
-                _grid_power_integrals(m, self.second_order_powers, cell_volume).reshape(-1, n_degrees, n_channels)
-                for m in moduli
-            ]
-            results.append(np.stack(per_degree, axis=2))  # (n_powers, l1, l2, channels)
+            integrals = _grid_power_integrals(moduli, self.second_order_powers, cell_volume, n_grid_axes=1)
+            # (n_powers, l2, l1, channels) -> (n_powers, l1, l2, channels)
+            results.append(integrals.reshape(-1, n_degrees, n_degrees, n_channels).transpose(0, 2, 1, 3))
         return np.stack(results, axis=1)
