@@ -80,18 +80,30 @@ def pick_batch(std, vectors, k: int, shortlist_factor: float = 4.0, labelled_vec
 def choose_next(model, candidates, k: int, shortlist_factor: float = 4.0, labelled=None) -> dict[str, np.ndarray]:
     """Pick ``k`` of ``candidates`` (``ase.Atoms``) for a fitted :class:`molinv.recipes.EnergyModel`.
 
-    Returns ``{'picked': positions in pick order, 'predicted': eV, 'std': eV}`` for all candidates.
+    Candidates the fitted descriptor cannot describe (an element or size outside
+    its training set) are not picked; their reason says why. Returns
+    ``{'picked': positions in pick order, 'predicted': eV, 'std': eV, 'reason': str}``
+    over all candidates (NaN predictions where the reason is not empty).
     """
     from molinv.recipes import model_inputs
+    from molinv.screening.table import describable
 
     check_is_fitted(model, "regressor_")
     if not model.gives_std:
         raise LabelError("choosing by uncertainty needs a model that states one (model 'kernel' or 'large')")
-    inputs = model_inputs(model.descriptor_, list(candidates), model.feature_store)
-    predicted, std = model.regressor_.predict(inputs, return_std=True)
+    candidates = list(candidates)
+    reasons = np.array([describable(model.descriptor_, atoms) for atoms in candidates], dtype=object)
+    usable = np.flatnonzero(reasons == "")
+    if len(usable) < k:
+        raise LabelError(f"only {len(usable)} of {len(candidates)} candidates can be described by this model; "
+                         f"cannot pick {k}")
+    inputs = model_inputs(model.descriptor_, [candidates[i] for i in usable], model.feature_store)
+    predicted, std = np.full(len(candidates), np.nan), np.full(len(candidates), np.nan)
+    predicted[usable], std[usable] = model.regressor_.predict(inputs, return_std=True)
     elements = model.descriptor_.elements_
     known = None
     if labelled:
-        known = molecule_vectors(model_inputs(model.descriptor_, list(labelled), model.feature_store), elements)
-    picked = pick_batch(std, molecule_vectors(inputs, elements), k, shortlist_factor, known)
-    return {"picked": picked, "predicted": np.asarray(predicted, float), "std": np.asarray(std, float)}
+        labelled = [atoms for atoms in labelled if not describable(model.descriptor_, atoms)]
+        known = molecule_vectors(model_inputs(model.descriptor_, labelled, model.feature_store), elements)
+    picked = usable[pick_batch(std[usable], molecule_vectors(inputs, elements), k, shortlist_factor, known)]
+    return {"picked": picked, "predicted": predicted, "std": std, "reason": reasons}

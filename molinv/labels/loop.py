@@ -85,7 +85,9 @@ class PickLoop:
 
     ``inputs`` is anything the regressor takes that indexes by molecule (as in
     :class:`molinv.evaluation.CurveRun`); ``vectors`` one descriptor vector per
-    molecule for the diversity step; ``test`` the positions of the test set.
+    molecule for the diversity step; ``test`` the positions of the test set;
+    ``sizes`` the number of labelled training molecules after each round (round 0
+    is the random initial set; each later round adds the difference).
     """
 
     folder: Path
@@ -95,8 +97,7 @@ class PickLoop:
     regressor: object
     labeller: Callable
     test: np.ndarray
-    initial_size: int = 100
-    batch_size: int = 100
+    sizes: Sequence[int] = (100, 200, 300, 400, 500)
     strategy: str = "uncertain"
     seed: int = 0
     shortlist_factor: float = 4.0
@@ -109,20 +110,32 @@ class PickLoop:
         if len(self.names) != len(self.inputs) or len(self.vectors) != len(self.names):
             raise LabelError(f"{len(self.names)} names, {len(self.inputs)} model inputs and {len(self.vectors)} "
                              "vectors: one of each per molecule")
-        if self.initial_size < 2 or self.batch_size < 1:
-            raise LabelError("initial_size must be at least 2 and batch_size at least 1")
+        self.sizes = [int(s) for s in self.sizes]
+        if not self.sizes or self.sizes[0] < 2 or any(b <= a for a, b in zip(self.sizes, self.sizes[1:])):
+            raise LabelError(f"sizes {self.sizes} must start at 2 or more and increase")
+        if self.sizes[-1] > len(self.names) - len(self.test):
+            raise LabelError(f"{self.sizes[-1]} training molecules do not fit beside {len(self.test)} test "
+                             f"molecules in {len(self.names)}")
         self.folder.mkdir(parents=True, exist_ok=True)
         digest = hashlib.sha256("\n".join(self.names).encode())
         digest.update(self.test.tobytes())
         settings = {"molecules": hashlib.sha256(digest.digest()).hexdigest()[:16], "n_molecules": len(self.names),
-                    "test_size": int(len(self.test)), "initial_size": self.initial_size,
-                    "batch_size": self.batch_size, "strategy": self.strategy, "seed": self.seed,
+                    "test_size": int(len(self.test)), "strategy": self.strategy, "seed": self.seed,
                     "shortlist_factor": self.shortlist_factor}
         record = self.folder / "loop.json"
-        if record.exists() and json.loads(record.read_text()) != settings:
-            raise LabelError(f"{self.folder} holds a loop with other molecules or settings "
-                             f"({record.read_text().strip()}); choose another folder")
-        record.write_text(json.dumps(settings, indent=2))
+        if record.exists():
+            stored = json.loads(record.read_text())
+            earlier = stored.pop("sizes")
+            # A finished loop may be extended by more rounds, never changed.
+            if stored != settings or earlier != self.sizes[: len(earlier)]:
+                raise LabelError(f"{self.folder} holds a loop with other molecules or settings "
+                                 f"({record.read_text().strip()}); choose another folder")
+        record.write_text(json.dumps({**settings, "sizes": self.sizes}, indent=2))
+
+    @property
+    def label(self) -> str:
+        """The curve's name in reports: the strategy, with the shortlist size when it picks by uncertainty."""
+        return "random" if self.strategy == "random" else f"uncertain (shortlist {self.shortlist_factor:g}k)"
 
     @property
     def labels_path(self) -> Path:
@@ -166,14 +179,14 @@ class PickLoop:
         pool = np.flatnonzero(~taken)
         if len(pool) == 0:
             raise LabelError("the pool is exhausted: every molecule is labelled")
-        size = min(self.batch_size, len(pool))
+        size = min(self.sizes[round_number] - self.sizes[round_number - 1], len(pool))
         if self.strategy == "random":
             return np.random.default_rng([self.seed, round_number]).choice(pool, size=size, replace=False)
         _, std = model.predict(self.inputs[pool], return_std=True)
         return pool[pick_batch(std, self.vectors[pool], size, self.shortlist_factor, self.vectors[train])]
 
-    def run(self, rounds: int, progress: bool | None = None) -> pd.DataFrame:
-        """Run rounds 0..``rounds`` (each: label its batch, fit, measure); return the rounds table."""
+    def run(self, progress: bool | None = None) -> pd.DataFrame:
+        """Run every round not yet finished (each: label its batch, fit, measure); return the rounds table."""
         labelled = self.labelled()
         if not (labelled["round"] == -1).any():
             self._label(self.test, -1)
@@ -183,14 +196,14 @@ class PickLoop:
         if len(test_positions) == 0:
             raise LabelError("no test molecule could be labelled")
         model = train = None
-        bar = tqdm(range(rounds + 1), desc=f"pick-loop {self.strategy}", unit="round",
+        bar = tqdm(range(len(self.sizes)), desc=f"pick-loop {self.strategy}", unit="round",
                    disable=None if progress is None else not progress)
         for round_number in bar:
             if not (labelled["round"] == round_number).any():
                 if round_number == 0:
                     pool = np.setdiff1d(np.arange(len(self.names)), self.test)
                     batch = np.random.default_rng([self.seed, 0]).choice(
-                        pool, size=min(self.initial_size, len(pool)), replace=False)
+                        pool, size=self.sizes[0], replace=False)
                 else:
                     if model is None:
                         model, train, _ = self._fit(labelled, round_number - 1)
@@ -203,7 +216,7 @@ class PickLoop:
                 continue
             model, train, seconds = self._fit(labelled, round_number)
             predicted = np.asarray(model.predict(self.inputs[test_positions]), float)
-            point = {"label": self.strategy, "size": len(train), "draw": self.seed, "round": round_number,
+            point = {"label": self.label, "size": len(train), "draw": self.seed, "round": round_number,
                      **error_metrics(test_energies, predicted), "fit_seconds": seconds,
                      "hyperparameters": json.dumps(chosen_hyperparameters(model))}
             _append(self.rounds_path, [point], ROUND_COLUMNS)
