@@ -40,3 +40,14 @@ def test_pick_and_pick_loop(tmp_path, capsys):
     assert "labels revealed in this run: 20" in capsys.readouterr().out
     assert list(pd.read_csv(folder / "rounds.csv")["size"]) == [20, 40, 60]
     assert (folder / "learning_curve.png").stat().st_size > 0
+
+
+def test_pick_loop_computes_the_labels_it_picks(tmp_path, capsys):
+    folder = tmp_path / "loop"
+    assert main(["pick-loop", "qm9:90:2", "--method", "xtb", "--descriptor", "counts", "--sizes", "10", "20",
+                 "--test-size", "30", "--out", str(folder)]) == 0
+    computed = pd.read_csv(folder / "computed.csv")
+    labels = pd.read_csv(folder / "labels.csv")
+    assert len(computed) == 50 and computed["name"].is_unique
+    assert sorted(computed["name"]) == sorted(labels["name"])
+    assert list(pd.read_csv(folder / "rounds.csv")["size"]) == [10, 20]
