@@ -34,7 +34,7 @@ COLUMNS = ("name", "formula", "method", "status", "energy_Hartree", "energy_eV",
            "seconds", "reason")
 NUMBER_COLUMNS = ("energy_Hartree", "energy_eV", "atomization_energy_eV", "seconds")
 #: Thread-count variables of OpenMP and the BLAS libraries, set to 1 in worker processes:
-#: two threads per process on 2 cores made PySCF and tblite 2-20x slower (measured on this project's machine).
+#: two threads per process on 2 cores made PySCF and tblite 2-20x slower (as measured when issue 7 was filed).
 THREAD_VARIABLES = ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS", "BLIS_NUM_THREADS")
 
 
