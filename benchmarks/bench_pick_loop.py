@@ -97,6 +97,10 @@ def main() -> int:
     lines = [f"QM9 sample {args.molecules}, test {args.test_size}, descriptor {args.descriptor}, kernel ridge (CV), "
              f"seeds {args.seeds}; MAE kcal/mol, mean over seeds",
              summary.pivot(index="size", columns="label", values="mae_mean").round(2).to_string(), "",
+             "RMSE kcal/mol, mean over seeds",
+             summary.pivot(index="size", columns="label", values="rmse_mean").round(2).to_string(), "",
+             "largest test error kcal/mol, mean over seeds",
+             summary.pivot(index="size", columns="label", values="max_error_mean").round(1).to_string(), "",
              f"random batches at {largest} labels: {goal:.2f} kcal/mol"]
     for label, curve in summary.groupby("label"):
         needed = labels_needed(curve, goal)
