@@ -274,6 +274,128 @@ def run_screen(args) -> int:
     return 0
 
 
+def add_method_options(parser) -> None:
+    from .labels.methods import KINDS
+
+    parser.add_argument("--method", default="xtb", choices=KINDS,
+                        help="hf: restricted Hartree-Fock (PySCF); dft: Kohn-Sham DFT (PySCF); xtb: GFN2-xTB (tblite). "
+                             "Needs pip install 'molinv[quantum]'")
+    parser.add_argument("--functional", default="B3LYPG",
+                        help="PySCF functional name for --method dft (default B3LYPG: B3LYP with VWN3, as in Gaussian and QM9)")
+    parser.add_argument("--basis", default="6-31G(2df,p)", help="basis set for hf and dft (default 6-31G(2df,p), as QM9)")
+    parser.add_argument("--cartesian", action="store_true", help="Cartesian d and f functions (default spherical)")
+    parser.add_argument("--grid-level", type=int, default=3, help="PySCF DFT grid level 0-9 (default 3)")
+    parser.add_argument("--max-cycles", type=int, default=100, help="SCF iterations before giving up (default 100)")
+
+
+def label_method(args):
+    from .labels import LabelMethod
+
+    return LabelMethod(args.method, functional=args.functional, basis=args.basis, grid_level=args.grid_level,
+                       max_cycles=args.max_cycles, cartesian=args.cartesian)
+
+
+def run_label(args) -> int:
+    from .labels import label_molecules, read_labels
+
+    method = label_method(args)
+    result = read_input(args, require_energy=False)
+    report_rejected(result)
+    if not result.molecules:
+        raise CommandError("no usable molecules to compute")
+    summary = label_molecules(result.molecules, method, args.out, n_jobs=args.jobs, chunk_size=args.chunk_size,
+                              retry_failed=args.retry_failed, progress=True)
+    print(f"{method.name}: {summary.text()}")
+    table = read_labels(args.out, method)
+    failed = table[table["status"] == "failed"]
+    for _, row in failed.head(10).iterrows():
+        print(f"  failed: {row['name']}: {row['reason']}")
+    if len(failed) > 10:
+        print(f"  ... and {len(failed) - 10} more (status 'failed' in {args.out})")
+    print("energies in Hartree and eV; atomization energies (eV) from free atoms computed with the same method")
+    return 0
+
+
+def run_pick(args) -> int:
+    import pandas as pd
+
+    from .labels.choose import choose_next
+    from .molecules.units import convert_energy
+    from .recipes import EnergyModel
+
+    model, metadata = EnergyModel.load(args.model_file)
+    result = read_input(args, require_energy=False)
+    report_rejected(result)
+    if args.k > len(result.molecules):
+        raise CommandError(f"cannot pick {args.k} of {len(result.molecules)} candidates")
+    labelled = None
+    if args.labelled:
+        from .molecules import read_molecules
+
+        labelled = read_molecules(args.labelled).molecules
+    choice = choose_next(model, result.molecules, args.k, shortlist_factor=args.shortlist, labelled=labelled)
+    order = {int(p): rank + 1 for rank, p in enumerate(choice["picked"])}
+    table = pd.DataFrame({
+        "name": [str(a.info.get("name", f"molecule_{i}")) for i, a in enumerate(result.molecules)],
+        "formula": [a.get_chemical_formula() for a in result.molecules],
+        f"{metadata['target']}_{args.unit}": convert_energy(choice["predicted"], "eV", args.unit),
+        f"std_{args.unit}": convert_energy(choice["std"], "eV", args.unit),
+        "pick_order": [order.get(i, "") for i in range(len(result.molecules))],
+        "reason": choice["reason"],
+    })
+    table.to_csv(args.out, index=False)
+    picked = table[table["pick_order"] != ""].sort_values("pick_order").drop(columns="reason")
+    print(f"picked {args.k} of {len(table)} candidates (largest predicted std, spread out) -> {args.out}")
+    print(picked.to_string(index=False, float_format=lambda v: f"{v:.2f}"))
+    skipped = int((table["reason"] != "").sum())
+    if skipped:
+        print(f"{skipped} candidates not describable by this model (reason column in {args.out})")
+    return 0
+
+
+def run_pick_loop(args) -> int:
+    import numpy as np
+
+    from .evaluation import summarize
+    from .evaluation.curves import test_split
+    from .evaluation.report import plot_learning_curves
+    from .labels.choose import molecule_vectors
+    from .labels.loop import ComputedLabels, HiddenLabels, PickLoop
+    from .labels.run import molecule_names
+    from .recipes import make_descriptor, make_regressor, model_inputs
+
+    if args.model not in ("kernel", "large"):
+        raise CommandError("pick-loop needs a model that states its uncertainty: --model kernel or large")
+    if args.simulate:
+        molecules, energies = labelled(args)
+        labeller = HiddenLabels(energies)
+    else:
+        result = read_input(args, require_energy=False)
+        report_rejected(result)
+        molecules = result.molecules
+        labeller = ComputedLabels(molecules, label_method(args), args.out / "computed.csv", n_jobs=args.jobs,
+                                  progress=True)
+    test, _ = test_split(len(molecules), args.test_size, args.seed)
+    # The descriptor is fitted (element set, padding) on all candidates, labels unseen.
+    descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, progress=True).fit(molecules)
+    inputs = model_inputs(descriptor, molecules, feature_store(args))
+    loop = PickLoop(args.out, molecule_names(molecules), inputs, molecule_vectors(inputs, descriptor.elements_),
+                    make_regressor(args.model, descriptor.per_atom), labeller, test, sizes=args.sizes,
+                    strategy=args.strategy, seed=args.seed, shortlist_factor=args.shortlist)
+    rounds = loop.run(progress=True)
+    summary = summarize(rounds, unit=args.unit)
+    summary.to_csv(args.out / "summary.csv", index=False)
+    plot_learning_curves(summary, {}, args.unit, None, args.out / "learning_curve.png")
+    shown = summary[["size", "mae_mean", "rmse_mean", "max_error_mean"]]
+    shown.columns = ["labelled", f"test MAE ({args.unit})", f"RMSE ({args.unit})", f"max error ({args.unit})"]
+    print(f"{loop.label}, test set of {len(test)}:")
+    print(shown.to_string(index=False, float_format=lambda v: f"{v:.2f}"))
+    print(f"rounds: {loop.rounds_path}; labels: {loop.labels_path}; curve: {args.out / 'learning_curve.png'}")
+    if isinstance(labeller, HiddenLabels):
+        print(f"labels revealed in this run: {len(labeller.revealed)} (test set and picked molecules only)")
+    return 0
+
+
 DEMO_DATA = Path(__file__).resolve().parent.parent / "data_demo" / "candidates.csv"
 
 
@@ -393,6 +515,55 @@ def build_parser() -> argparse.ArgumentParser:
     curve.add_argument("--out", type=Path, required=True, help="report folder (also holds the resumable run)")
     curve.set_defaults(run=run_curve)
 
+    label = verbs.add_parser("label", help="compute reference energies (HF, DFT or GFN2-xTB) into a labels file",
+                             description="Compute the total and atomization energy of every molecule with PySCF or "
+                                         "tblite, in parallel single-thread processes; each row is written as it "
+                                         "finishes, failures keep their reason, and a rerun skips names already in "
+                                         "the file. Closed-shell molecules only. " + UNITS_HELP)
+    add_input_options(label)
+    add_method_options(label)
+    label.add_argument("--jobs", type=int, default=1, help="worker processes, one thread each (default 1)")
+    label.add_argument("--chunk-size", type=int, default=None,
+                       help="molecules per task (default 1 for hf/dft, 16 for xtb)")
+    label.add_argument("--retry-failed", action="store_true", help="recompute molecules whose earlier row failed")
+    label.add_argument("--out", type=Path, required=True, help="labels file (.csv), appended to")
+    label.set_defaults(run=run_label)
+
+    pick = verbs.add_parser("pick", help="choose the next k candidates worth computing",
+                            description="Predict every candidate with a model file and pick k among the most "
+                                        "uncertain, spread out in descriptor space (greedy farthest point). "
+                                        + UNITS_HELP)
+    pick.add_argument("model_file", type=Path, help="model file written by 'molinv fit' (model kernel or large)")
+    add_input_options(pick)
+    pick.add_argument("--k", type=int, default=10, help="how many to pick (default 10)")
+    pick.add_argument("--shortlist", type=float, default=4.0,
+                      help="pick among the shortlist x k most uncertain (default 4; 1 = uncertainty only)")
+    pick.add_argument("--labelled", type=Path, help="molecules already computed: candidates near them count as near")
+    pick.add_argument("--unit", default="kcal/mol", help="energy unit of the output (default kcal/mol)")
+    pick.add_argument("--out", type=Path, required=True, help="table of all candidates with pick_order (.csv)")
+    pick.set_defaults(run=run_pick)
+
+    loop = verbs.add_parser("pick-loop", help="repeat pick, compute, refit and measure for several rounds",
+                            description="A fixed test set is labelled first; then each round labels a batch "
+                                        "(round 0 at random, later rounds picked by the model), refits and "
+                                        "measures the test error. With --simulate the energies in the input are "
+                                        "hidden until picked; otherwise they are computed with --method. "
+                                        "A rerun resumes; more --sizes extend a finished loop. " + UNITS_HELP)
+    add_input_options(loop)
+    add_recipe_options(loop)
+    add_method_options(loop)
+    loop.add_argument("--simulate", action="store_true", help="use the energies in the input, revealed when picked")
+    loop.add_argument("--sizes", type=int, nargs="+", default=[100, 200, 300, 500, 700, 1000],
+                      help="labelled training molecules after each round")
+    loop.add_argument("--test-size", type=int, default=500, help="test molecules, labelled first (default 500)")
+    loop.add_argument("--strategy", default="uncertain", choices=["uncertain", "random"],
+                      help="uncertain: most uncertain, spread out; random: the baseline")
+    loop.add_argument("--shortlist", type=float, default=4.0, help="as in 'molinv pick' (default 4)")
+    loop.add_argument("--seed", type=int, default=0, help="seed of the test set, initial set and random batches")
+    loop.add_argument("--unit", default="kcal/mol", help="energy unit of the report (default kcal/mol)")
+    loop.add_argument("--out", type=Path, required=True, help="loop folder (resumable)")
+    loop.set_defaults(run=run_pick_loop)
+
     demo = verbs.add_parser("demo", help="run the main job on the bundled demo data and say where the report is",
                             description="Learning curves on a QM9 sample, then the demo candidates ranked by a model "
                                         "trained on it. Energies in kcal/mol. A few minutes on 2 cores.")
@@ -414,6 +585,7 @@ def main(argv=None) -> int:
     from .molecules.qm9 import Qm9Unavailable
     from .molecules.reading import InputError
     from .molecules.units import UnitError
+    from .labels import LabelError
     from .recipes import RecipeError
     from .screening.screen import ScreenError
 
@@ -421,7 +593,7 @@ def main(argv=None) -> int:
     try:
         return args.run(args)
     except (CommandError, InputError, UnitError, RecipeError, DescriptorError, ModelInputError, ModelFileError,
-            CurveError, Qm9Unavailable, ScreenError) as error:
+            CurveError, Qm9Unavailable, ScreenError, LabelError) as error:
         print(f"molinv {args.verb}: error: {error}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
