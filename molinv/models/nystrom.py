@@ -107,6 +107,10 @@ class NystromRidge(BaselineMixin, RegressorMixin, BaseEstimator):
         Eigenvalues of the landmark kernel below ``rcond`` times the largest are dropped.
     dtype : {"float32", "float64"}
         Precision of atom-to-landmark kernels (atomwise only); features are summed in float64.
+        Measured on QM9 'atoms' (1,000 training molecules, 300 landmarks per element, width 3.1
+        median distances): mean |E32 - E64| 0.26, 0.080, 0.021 kcal/mol at regularisation 1e-5,
+        1e-4, 1e-3 (MAE 2.2-3.0); dropping more landmark eigenvalues (``rcond`` 1e-7 to 1e-5)
+        shrinks the gap but costs more accuracy than it saves.
     scale : bool
         Standardise global features with training statistics (global kernels only).
     baseline : {"elements", "mean", None}
