@@ -250,7 +250,10 @@ def bench_nystrom(folder: Path, n_train: int, n_test: int, width: float, regular
     features, energies = open_atom_descriptor_file(folder)
     if n_train + n_test > len(energies):
         raise SystemExit(f"{folder} holds {len(energies)} described molecules; {n_train} + {n_test} asked")
-    train, test = features[:n_train], features[len(energies) - n_test :]
+    # The training part as views of the mapped file (indexing AtomFeatures copies the rows).
+    end = features.offsets[n_train]
+    train = AtomFeatures(features.values[:end], features.numbers[:end], features.offsets[: n_train + 1], features.elements)
+    test = features[len(energies) - n_test :]
     train_y, test_y = energies[:n_train], energies[len(energies) - n_test :]
     with MemoryWatch() as memory:
         fit_time, mae, coverage, model = nystrom_holdout(train, train_y, test, test_y, width, regularization, n_landmarks)
