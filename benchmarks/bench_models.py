@@ -24,7 +24,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import resource
 import threading
 import time
 from pathlib import Path

@@ -54,6 +54,7 @@ from molinv.models.kernels import AtomwiseKernel, GlobalKernel, check_widths
 
 #: Cost of a symmetric eigendecomposition in units of one Cholesky factorisation of
 #: the same matrix. A prototype measured 7-18x (LAPACK syevd vs potrf, n = 1,000-4,000);
+#: benchmarks/bench_models.py measured 17.5x at n = 4,000 (scipy eigh, one thread, shared machine);
 #: 12 is the middle of that range. With fewer regularisation values per width than
 #: this, Cholesky per value is cheaper.
 EIG_TO_CHOLESKY_COST = 12.0
