@@ -151,8 +151,10 @@ def atom_features(X) -> AtomFeatures:
         raise ModelInputError(f"expected AtomFeatures (one vector per atom), got {type(X).__name__}")
     if len(X) == 0 or X.values.ndim != 2:
         raise ModelInputError("AtomFeatures holds no molecules or its values are not 2-D")
-    if not np.all(np.isfinite(X.values)):
-        raise ModelInputError("AtomFeatures values contain NaN or infinite values")
+    # In row blocks: the values may be a memory-mapped file larger than memory.
+    for start in range(0, len(X.values), 100_000):
+        if not np.all(np.isfinite(X.values[start : start + 100_000])):
+            raise ModelInputError("AtomFeatures values contain NaN or infinite values")
     return X
 
 
@@ -189,7 +191,7 @@ def fingerprint(*arrays) -> str:
     for array in arrays:
         array = np.ascontiguousarray(array)
         digest.update(f"{array.dtype.str}{array.shape}".encode())
-        digest.update(array.tobytes())
+        digest.update(memoryview(array).cast("B"))  # the array's bytes, without a copy
     return digest.hexdigest()
 
 

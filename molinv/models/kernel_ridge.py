@@ -19,11 +19,15 @@ leave-one-out residuals. The baseline is held fixed in the leave-one-out step.
 
 Cross-validation (:class:`KernelRidgeCV`, :class:`AtomwiseKernelRidgeCV`)
 shares the costly parts: distances once (once in all when no per-fold scaling,
-else once per fold) reused for every width; per width, either one Cholesky
-factorisation per regularisation value or one eigendecomposition
+else once per fold) reused for every width; each width's kernel once for the whole
+training set, the fold blocks cut from it by indexing; per fold and width, either one
+Cholesky factorisation per regularisation value or one eigendecomposition
 :math:`K = V \\Lambda V^T` reused for all of them,
 :math:`\\alpha(\\lambda) = V (\\Lambda + \\lambda)^{-1} V^T y`, whichever is cheaper
-(:func:`choose_solver`).
+(:func:`choose_solver`); the validation predictions for all regularisation values are
+one matrix product. What remains is the factorisations themselves (74% of the time at
+1,500 molecules, more at larger sizes): an exact search cannot be faster than one
+factorisation per fold, width and value (benchmarks/bench_models.py measures that floor).
 """
 
 from __future__ import annotations
@@ -50,6 +54,7 @@ from molinv.models.kernels import AtomwiseKernel, GlobalKernel, check_widths
 
 #: Cost of a symmetric eigendecomposition in units of one Cholesky factorisation of
 #: the same matrix. A prototype measured 7-18x (LAPACK syevd vs potrf, n = 1,000-4,000);
+#: benchmarks/bench_models.py measured 17.5x at n = 4,000 (scipy eigh, one thread, shared machine);
 #: 12 is the middle of that range. With fewer regularisation values per width than
 #: this, Cholesky per value is cheaper.
 EIG_TO_CHOLESKY_COST = 12.0
@@ -73,34 +78,41 @@ def check_regularizations(values) -> np.ndarray:
     return values
 
 
-def solve_regularized(kernel: np.ndarray, y: np.ndarray, regularization: float) -> np.ndarray:
+def solve_regularized(kernel: np.ndarray, y: np.ndarray, regularization: float, work: np.ndarray | None = None) -> np.ndarray:
     """``(K + lambda I)^{-1} y`` by Cholesky; least squares if ``K + lambda I`` is not positive definite
-    (the same fallback as :class:`sklearn.kernel_ridge.KernelRidge`)."""
-    system = with_added_diagonal(kernel, regularization)
+    (the same fallback as :class:`sklearn.kernel_ridge.KernelRidge`). ``kernel`` is left intact;
+    ``work``, a C-ordered array of its shape, is overwritten (pass one to reuse it across calls)."""
+    system = with_added_diagonal(kernel, regularization, work)
     try:
-        factor = scipy.linalg.cho_factor(system, lower=True, overwrite_a=True, check_finite=False)
+        # The transposed view of a C-ordered symmetric matrix is Fortran-ordered: LAPACK factors it in place.
+        factor = scipy.linalg.cho_factor(system.T, lower=True, overwrite_a=True, check_finite=False)
     except np.linalg.LinAlgError:
-        return scipy.linalg.lstsq(with_added_diagonal(kernel, regularization), y)[0]
+        return scipy.linalg.lstsq(with_added_diagonal(kernel, regularization, system), y, check_finite=False)[0]
     return scipy.linalg.cho_solve(factor, y, check_finite=False)
 
 
-def with_added_diagonal(matrix: np.ndarray, value: float) -> np.ndarray:
-    """A Fortran-ordered copy of ``matrix`` with ``value`` added to its diagonal (LAPACK then works in place)."""
-    result = np.array(matrix, dtype=float, order="F")
+def with_added_diagonal(matrix: np.ndarray, value: float, out: np.ndarray | None = None) -> np.ndarray:
+    """A C-ordered copy of ``matrix`` (into ``out`` when given) with ``value`` added to its diagonal."""
+    result = np.empty(matrix.shape) if out is None else out
+    np.copyto(result, matrix)
     result.flat[:: len(result) + 1] += value
     return result
 
 
 def validation_errors(kernel_train, kernel_val, y_train, y_val, regularizations, solver: str) -> np.ndarray:
-    """Mean absolute validation error for each regularisation value at one width."""
+    """Mean absolute validation error for each regularisation value at one width.
+
+    ``kernel_train`` (C-ordered, symmetric) is a scratch copy: the eigen solver overwrites it. Dual
+    coefficients for all regularisation values go into one matrix, so that the validation
+    predictions are one matrix product.
+    """
     if solver == "eigen":
-        eigenvalues, vectors = scipy.linalg.eigh(kernel_train, check_finite=False)
-        projected = vectors.T @ y_train
-        predictions = (kernel_val @ vectors) @ (projected[:, None] / (eigenvalues[:, None] + regularizations[None, :]))
-        return np.mean(np.abs(predictions - y_val[:, None]), axis=0)
-    return np.array(
-        [np.mean(np.abs(kernel_val @ solve_regularized(kernel_train, y_train, reg) - y_val)) for reg in regularizations]
-    )
+        eigenvalues, vectors = scipy.linalg.eigh(kernel_train.T, overwrite_a=True, check_finite=False)
+        coefficients = vectors @ ((vectors.T @ y_train)[:, None] / (eigenvalues[:, None] + regularizations[None, :]))
+    else:
+        work = np.empty(kernel_train.shape)
+        coefficients = np.column_stack([solve_regularized(kernel_train, y_train, reg, work) for reg in regularizations])
+    return np.mean(np.abs(kernel_val @ coefficients - y_val[:, None]), axis=0)
 
 
 def interval_scale(residuals: np.ndarray, variances: np.ndarray, level: float) -> float:
@@ -119,7 +131,7 @@ def check_interval_level(level) -> float:
 
 def forget_uncertainty(model) -> None:
     """Drop the uncertainty state of an earlier fit, so a refit without it cannot use stale arrays."""
-    for name in ("cholesky_", "std_scale_"):
+    for name in ("cholesky_", "std_scale_", "n_calibration_"):
         if hasattr(model, name):
             delattr(model, name)
 
@@ -163,16 +175,17 @@ class _KernelRidgeBase(BaselineMixin, RegressorMixin, BaseEstimator):
     """Shared fit-with-fixed-hyperparameters and predict. Subclasses define the kernel and features."""
 
     def _fit_fixed(self, X, y, width: float, regularization: float, kernel=None):
-        """Fit at one width and regularisation; ``kernel``, if given, is the training kernel already computed."""
+        """Fit at one width and regularisation; ``kernel``, if given, is the training kernel already computed
+        (it is overwritten by the factorisation)."""
         y = targets(y, len(X))
         features = self._fit_features(X)
         residual = self._fit_baseline(X, y)
         if kernel is None:
             kernel = self._make_kernel().table(features, features, [width]).matrix(0)
+        # ``kernel`` is not needed afterwards: the factorisation works in its memory.
+        kernel.flat[:: len(kernel) + 1] += regularization
         try:
-            lower = scipy.linalg.cholesky(
-                with_added_diagonal(kernel, regularization), lower=True, overwrite_a=True, check_finite=False
-            )
+            lower = scipy.linalg.cholesky(kernel.T, lower=True, overwrite_a=True, check_finite=False)
         except np.linalg.LinAlgError as error:
             raise ModelInputError(
                 f"K + lambda I is not positive definite at width {width}, regularisation {regularization}; "
@@ -297,6 +310,23 @@ class _GridSearch:
             raise ModelInputError(f"cv must be an int or a scikit-learn splitter, got {self.cv!r}")
         return list(splitter.split(np.zeros((n, 1))))
 
+    def _fold_kernels(self, X, kernel, folds, widths, shared):
+        """``(i_fold, i_width, K_train, K_validation)`` for every fold and width. With ``shared`` (the
+        kernel table of the whole training set) each width's kernel is computed once and the fold
+        blocks are cut from it; otherwise (per-fold scaling) one table per fold."""
+        if shared is not None:
+            for i_width in range(len(widths)):
+                full = shared.matrix(i_width)
+                for i_fold, (train, validation) in enumerate(folds):
+                    yield i_fold, i_width, full[np.ix_(train, train)], full[np.ix_(validation, train)]
+            return
+        for i_fold, (train, validation) in enumerate(folds):
+            train_features, val_features = self._fold_features(X, train, validation)
+            train_table = kernel.table(train_features, train_features, widths)
+            val_table = kernel.table(val_features, train_features, widths)
+            for i_width in range(len(widths)):
+                yield i_fold, i_width, train_table.matrix(i_width), val_table.matrix(i_width)
+
     def fit(self, X, y):
         X = self._as_input(X)
         y = targets(y, len(X))
@@ -308,25 +338,17 @@ class _GridSearch:
         self.width_unit_value_ = self._width_unit_value(training_features)
         widths = check_widths(self.widths) * self.width_unit_value_
         shared = None if self._scales_per_fold() else kernel.table(training_features, self._training_features(), widths)
-        errors = np.zeros((len(folds), len(widths), len(regularizations)))
-        bar = tqdm(folds, desc=type(self).__name__, unit="fold", disable=None if self.progress is None else not self.progress)
-        for i_fold, (train, validation) in enumerate(bar):
+        residuals = []
+        for train, validation in folds:
             state = fit_baseline(self.baseline, X[train], y[train])
-            y_train = y[train] - predict_baseline(state, X[train])
-            y_val = y[validation] - predict_baseline(state, X[validation])
-            if shared is None:
-                train_features, val_features = self._fold_features(X, train, validation)
-                train_table = kernel.table(train_features, train_features, widths)
-                val_table = kernel.table(val_features, train_features, widths)
-            for i_width in range(len(widths)):
-                if shared is None:
-                    kernel_train, kernel_val = train_table.matrix(i_width), val_table.matrix(i_width)
-                else:
-                    kernel_train = shared.matrix(i_width, train, train)
-                    kernel_val = shared.matrix(i_width, validation, train)
-                errors[i_fold, i_width] = validation_errors(
-                    kernel_train, kernel_val, y_train, y_val, regularizations, self.solver_
-                )
+            residuals.append((y[train] - predict_baseline(state, X[train]), y[validation] - predict_baseline(state, X[validation])))
+        errors = np.zeros((len(folds), len(widths), len(regularizations)))
+        blocks = self._fold_kernels(X, kernel, folds, widths, shared)
+        bar = tqdm(blocks, total=len(folds) * len(widths), desc=type(self).__name__, unit="fold x width",
+                   disable=None if self.progress is None else not self.progress)
+        for i_fold, i_width, kernel_train, kernel_val in bar:
+            y_train, y_val = residuals[i_fold]
+            errors[i_fold, i_width] = validation_errors(kernel_train, kernel_val, y_train, y_val, regularizations, self.solver_)
         self.cv_mae_ = errors.mean(axis=0)
         i_reg, i_width = np.unravel_index(np.argmin(self.cv_mae_.T), self.cv_mae_.T.shape)
         full_kernel = None if shared is None else shared.matrix(i_width)
@@ -423,10 +445,12 @@ class KernelRidgeCV(_GlobalFeatures, _GridSearch, _KernelRidgeBase):
 
 _ATOM_DOC = """dtype : {"float64", "float32"}
         Precision of atom-pair distances and atom kernels (molecule kernels are summed in float64).
-        float32 was 1.0-2.1x faster in our runs; its kernel error (measured on QM9 radial atom features: about
-        3e-7 of the largest entry) is amplified by the solve roughly as 1/regularisation: measured
-        mean |E32 - E64| 0.4, 2.4, 14, 55 meV at regularisation 1e-1, 1e-2, 1e-3, 1e-4 (largest
-        kernel entry 351; benchmarks/bench_models.py). Use it only with regularisation >~ 1e-2.
+        Measured on the 'atoms' descriptor of QM9 (2,325 numbers per atom; 500 training, 300 test
+        molecules; benchmarks/bench_models.py, shared machine): float32 1.7x (training kernel) and
+        2.9x (test kernel) faster; kernel error about 1.4e-7 of the largest entry at 4 median widths;
+        mean |E32 - E64| 0.016, 0.061, 0.12, 0.15 kcal/mol at regularisation 1e-2, 1e-3, 1e-4, 1e-5
+        (test MAE about 2.1 kcal/mol). Cross-validation on QM9 picks 1e-4 to 1e-3, where float32 adds
+        3-6% of the error: keep float64 for final models, float32 where speed matters more.
     block_size : int
         Atoms per block in the kernel computation (memory vs. call overhead)."""
 

@@ -66,10 +66,10 @@ def check_widths(widths) -> np.ndarray:
 
 
 def kernel_from_distances(distances: np.ndarray, kind: str, width: float) -> np.ndarray:
-    """Gaussian ``exp(-d2 / (2 s^2))`` of squared distances or Laplacian ``exp(-d1 / s)`` of L1 distances."""
-    if kind == "gaussian":
-        return np.exp(distances * (-0.5 / width**2))
-    return np.exp(distances * (-1.0 / width))
+    """Gaussian ``exp(-d2 / (2 s^2))`` of squared distances or Laplacian ``exp(-d1 / s)`` of L1 distances
+    (one new array, exponentiated in place)."""
+    result = distances * (-0.5 / width**2 if kind == "gaussian" else -1.0 / width)
+    return np.exp(result, out=result)
 
 
 class KernelTable:
@@ -89,9 +89,9 @@ class KernelTable:
     def matrix(self, i_width: int, rows=None, cols=None) -> np.ndarray:
         source = self._distances if self._matrices is None else self._matrices[i_width]
         if rows is not None or cols is not None:
-            rows = slice(None) if rows is None else np.asarray(rows)
-            cols = slice(None) if cols is None else np.asarray(cols)
-            source = source[rows][:, cols]
+            rows = np.arange(len(source)) if rows is None else np.asarray(rows)
+            cols = np.arange(source.shape[1]) if cols is None else np.asarray(cols)
+            source = source[np.ix_(rows, cols)]
         if self._matrices is not None:
             return source
         return kernel_from_distances(source, self._kind, self.widths[i_width])

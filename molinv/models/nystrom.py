@@ -25,6 +25,15 @@ calibrated on leave-one-out residuals :math:`r_i / (1 - h_i)` of the linear ridg
 variances :math:`\\lambda / (1 - h_i) + k(x_i, x_i) - |\\phi_i|^2`,
 :math:`h_i = \\phi_i^T (\\Phi^T\\Phi + \\lambda I)^{-1} \\phi_i` (the missed part keeps
 the calibration consistent with the test-time variance when landmarks are few).
+
+Calibration molecules: when there are more candidate landmarks than ``n_landmarks``, a
+random share of the training molecules (``CALIBRATION_SHARE``, at most ``CALIBRATION_MAX``)
+is kept out of the landmark draw, and the amplitude is calibrated on their leave-one-out
+residuals only. Their features then do not depend on themselves, so their leave-one-out
+residuals are true out-of-sample errors, like those of new molecules (for a landmark molecule
+the missed part is zero and its residual small, which made intervals calibrated on all
+molecules drift with the landmark share: coverage 0.84-0.96 measured before this). With every
+candidate a landmark (the exact limit) all molecules are used, as in exact kernel ridge.
 """
 
 from __future__ import annotations
@@ -64,6 +73,11 @@ from molinv.models.kernels import (
 )
 
 NYSTROM_KERNELS = GLOBAL_KERNELS + ("atomwise",)
+#: Share of the training molecules (at most CALIBRATION_MAX) kept out of the landmark draw when
+#: there are more candidates than landmarks; the interval amplitude is calibrated on their
+#: leave-one-out residuals only (see the module docstring).
+CALIBRATION_SHARE = 0.2
+CALIBRATION_MAX = 5000
 
 
 def inverse_square_root(kernel: np.ndarray, rcond: float) -> np.ndarray:
@@ -86,13 +100,19 @@ class NystromRidge(BaselineMixin, RegressorMixin, BaseEstimator):
         Kernel width and ``lambda``.
     n_landmarks : int
         Landmark molecules (global kernels) or landmark atoms per element (atomwise),
-        drawn at random from the training set; all of them when there are fewer.
+        drawn at random from the training set; all of them when there are fewer. Otherwise
+        the calibration molecules (a fifth, at most 5,000) are not drawn from, so at most
+        80% of the candidates become landmarks.
     random_state : int
         Seed of the landmark draw.
     rcond : float
         Eigenvalues of the landmark kernel below ``rcond`` times the largest are dropped.
     dtype : {"float32", "float64"}
         Precision of atom-to-landmark kernels (atomwise only); features are summed in float64.
+        Measured on QM9 'atoms' (1,000 training molecules, 300 landmarks per element, width 3.1
+        median distances): mean |E32 - E64| 0.26, 0.080, 0.021 kcal/mol at regularisation 1e-5,
+        1e-4, 1e-3 (MAE 2.2-3.0); dropping more landmark eigenvalues (``rcond`` 1e-7 to 1e-5)
+        shrinks the gap but costs more accuracy than it saves.
     scale : bool
         Standardise global features with training statistics (global kernels only).
     baseline : {"elements", "mean", None}
@@ -143,20 +163,37 @@ class NystromRidge(BaselineMixin, RegressorMixin, BaseEstimator):
             raise ModelInputError(f"features have {values.shape[1]} columns; the model was fitted on {len(self.feature_mean_)}")
         return (values - self.feature_mean_) / self.feature_scale_
 
-    def _choose_landmarks(self, X, rng):
+    def _calibration_molecules(self, n_molecules: int, n_candidates, rng) -> np.ndarray:
+        """Boolean mask of the molecules kept out of the landmark draw (none when every
+        candidate of every group becomes a landmark)."""
+        reserved = np.zeros(n_molecules, dtype=bool)
+        if all(count <= int(self.n_landmarks) for count in n_candidates):
+            return reserved
+        size = max(1, min(CALIBRATION_MAX, int(round(CALIBRATION_SHARE * n_molecules))))
+        reserved[rng.choice(n_molecules, size, replace=False)] = True
+        return reserved
+
+    def _choose_landmarks(self, X, rng) -> np.ndarray:
+        """Draw the landmarks; returns the calibration mask (see :meth:`_calibration_molecules`)."""
         if self.kernel != "atomwise":
             values = global_values(X)
             self.feature_mean_, self.feature_scale_ = fit_scaling(values, self.scale)
-            picked = np.sort(rng.choice(len(values), min(int(self.n_landmarks), len(values)), replace=False))
+            reserved = self._calibration_molecules(len(values), [len(values)], rng)
+            pool = np.flatnonzero(~reserved)
+            picked = np.sort(rng.choice(pool, min(int(self.n_landmarks), len(pool)), replace=False))
             self.landmarks_ = self._scaled(values[picked])
             self.landmark_numbers_ = np.zeros(len(picked), dtype=int)
-            return
+            return reserved
+        elements, counts = np.unique(X.numbers, return_counts=True)
+        reserved = self._calibration_molecules(len(X), counts, rng)
+        eligible = ~reserved[X.molecule_index()]
         picked = []
-        for z in np.unique(X.numbers):
-            atoms = np.flatnonzero(X.numbers == z)
+        for z in elements:
+            atoms = np.flatnonzero((X.numbers == z) & eligible)
             picked.append(np.sort(rng.choice(atoms, min(int(self.n_landmarks), len(atoms)), replace=False)))
         picked = np.concatenate(picked)
         self.landmarks_, self.landmark_numbers_ = X.values[picked], X.numbers[picked]
+        return reserved
 
     def _landmark_kernel(self, rows: np.ndarray, landmarks: np.ndarray) -> np.ndarray:
         if self.kernel == "atomwise":
@@ -217,35 +254,39 @@ class NystromRidge(BaselineMixin, RegressorMixin, BaseEstimator):
         self._check_settings()
         X = self._inputs(X)
         y = targets(y, len(X))
-        self._choose_landmarks(X, np.random.default_rng(self.random_state))
-        return self._fit_fixed(X, y, check_widths(self.width)[0], check_regularizations(self.regularization)[0])
+        reserved = self._choose_landmarks(X, np.random.default_rng(self.random_state))
+        return self._fit_fixed(X, y, check_widths(self.width)[0], check_regularizations(self.regularization)[0], reserved)
 
-    def _fit_fixed(self, X, y, width: float, regularization: float):
-        """Fit with landmarks already chosen and the given hyperparameters."""
+    def _fit_fixed(self, X, y, width: float, regularization: float, reserved: np.ndarray):
+        """Fit with landmarks already chosen (``reserved``: the calibration mask they left out)
+        and the given hyperparameters."""
         self.width_ = float(width)
         self.regularization_ = float(regularization)
+        calibration = reserved if reserved.any() else np.ones(len(y), dtype=bool)
         self._fit_projections()
         residual = self._fit_baseline(X, y)
         rank = int(self.projection_shapes_[:, 1].sum())
         gram, moment = np.zeros((rank, rank)), np.zeros(rank)
+        kept = []  # features of the calibration molecules, for the leave-one-out step
         for chunk in self._chunks(len(y)):
             features = self._features(X[chunk])
             gram += features.T @ features
             moment += features.T @ residual[chunk]
+            if self.predictive_std:
+                kept.append(features[calibration[chunk]])
         gram[np.diag_indices(rank)] += self.regularization_
         lower = scipy.linalg.cholesky(gram, lower=True)
         self.coef_ = scipy.linalg.cho_solve((lower, True), moment)
         forget_uncertainty(self)
         if self.predictive_std:
             self.cholesky_ = lower
-            loo_residuals, loo_variances = np.empty(len(y)), np.empty(len(y))
-            for chunk in self._chunks(len(y)):
-                features = self._features(X[chunk])
-                leverage = np.sum(scipy.linalg.solve_triangular(lower, features.T, lower=True) ** 2, axis=0)
-                missed = np.maximum(self._self_similarity(X[chunk]) - np.sum(features**2, axis=1), 0.0)
-                loo_residuals[chunk] = (residual[chunk] - features @ self.coef_) / (1.0 - leverage)
-                loo_variances[chunk] = self.regularization_ / (1.0 - leverage) + missed
+            features, rows = np.vstack(kept), np.flatnonzero(calibration)
+            leverage = np.sum(scipy.linalg.solve_triangular(lower, features.T, lower=True) ** 2, axis=0)
+            missed = np.maximum(self._self_similarity(X[rows]) - np.sum(features**2, axis=1), 0.0)
+            loo_residuals = (residual[rows] - features @ self.coef_) / (1.0 - leverage)
+            loo_variances = self.regularization_ / (1.0 - leverage) + missed
             self.std_scale_ = interval_scale(loo_residuals, loo_variances, check_interval_level(self.interval_level))
+            self.n_calibration_ = len(rows)
         self.training_fingerprint_ = training_fingerprint(X, y)
         return self
 
@@ -332,7 +373,7 @@ class NystromRidgeCV(NystromRidge):
         if int(self.cv) < 2 or int(self.cv) > len(y):
             raise ModelInputError(f"cv must be between 2 and the {len(y)} training molecules, got {self.cv!r}")
         regularizations = check_regularizations(self.regularizations)
-        self._choose_landmarks(X, np.random.default_rng(self.random_state))
+        reserved = self._choose_landmarks(X, np.random.default_rng(self.random_state))
         self.width_unit_value_ = self._width_unit_value(X)
         widths = check_widths(self.widths) * self.width_unit_value_
         folds = list(KFold(int(self.cv), shuffle=True, random_state=self.random_state).split(np.zeros((len(y), 1))))
@@ -360,4 +401,4 @@ class NystromRidgeCV(NystromRidge):
             del features
         self.cv_mae_ = errors
         i_width, i_reg = np.unravel_index(np.argmin(errors), errors.shape)
-        return self._fit_fixed(X, y, widths[i_width], regularizations[i_reg])
+        return self._fit_fixed(X, y, widths[i_width], regularizations[i_reg], reserved)
