@@ -27,7 +27,7 @@ DESCRIPTORS = {
               "atom-centred solid-harmonic wavelet invariants, one vector per atom"),
     "density": ("molinv.descriptors.density", "DensityScattering", {"second_order_channels": ("charge",)},
                 "global solid-harmonic wavelet scattering invariants of the density, first order on all channels, "
-                "second order on the charge channel (grid-based: about 12 ms per QM9 molecule, "
+                "second order on the charge channel (grid-based: about 7-12 ms per QM9 molecule, "
                 "grid terms within 1e-2 of a fine grid)"),
     "density-exact": ("molinv.descriptors.density", "DensityScattering", {"powers": (2,), "second_order": False},
                       "the q=2 global scattering invariants only, exact sums over atom pairs (about 1 ms per molecule)"),
