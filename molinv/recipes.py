@@ -48,7 +48,7 @@ KERNEL_REGULARIZATIONS = (1e-10, 1e-8, 1e-6, 1e-4, 1e-3, 1e-2, 1e-1, 1.0)
 #: and its landmarks: molecules for global descriptors, atoms per element for 'atoms'.
 LARGE_WIDTHS = (1.0, 2.0, 4.0, 8.0)
 LARGE_REGULARIZATIONS = (1e-8, 1e-6, 1e-4, 1e-2)
-LARGE_LANDMARKS = 2000
+LARGE_LANDMARKS = {"atoms": 1000, "molecules": 4000}
 MODEL_HELP = {
     "kernel": "kernel ridge, width and regularisation by 5-fold cross-validation",
     "linear": "ridge regression on the descriptor",
@@ -90,7 +90,8 @@ def make_regressor(name: str, per_atom: bool, progress: bool | None = None):
         return models.ElementBaseline()
     if name == "large":
         return models.NystromRidgeCV("atomwise" if per_atom else "laplacian", widths=LARGE_WIDTHS,
-                                     regularizations=LARGE_REGULARIZATIONS, n_landmarks=LARGE_LANDMARKS,
+                                     regularizations=LARGE_REGULARIZATIONS,
+                                     n_landmarks=LARGE_LANDMARKS["atoms" if per_atom else "molecules"],
                                      progress=progress)
     raise RecipeError(f"unknown model {name!r}; choose one of: {', '.join(MODELS)}")
 
