@@ -18,6 +18,7 @@ each worker once, not once per chunk.
 
 from __future__ import annotations
 
+import json
 import os
 import socket
 import time
@@ -44,6 +45,19 @@ class ChunkReport:
     items: int
     seconds: float
     worker: str
+
+
+def claim_folder(folder, settings: dict, record_name: str = "settings.json") -> Path:
+    """Create ``folder`` for a run with ``settings`` (JSON-able), or reopen it for the same
+    settings; a folder holding another run's chunks is refused (they would be reused)."""
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    record = folder / record_name
+    text = json.dumps(settings, indent=2, sort_keys=True)
+    if record.exists() and json.loads(record.read_text()) != json.loads(text):
+        raise ChunkError(f"{folder} holds the chunks of another input, model or settings; choose another folder")
+    record.write_text(text)
+    return folder
 
 
 def part_path(folder, number: int, suffix: str) -> Path:

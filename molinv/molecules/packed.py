@@ -12,7 +12,8 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass
-from typing import Sequence
+from functools import partial
+from typing import Iterable, Sequence
 
 import numpy as np
 from ase import Atoms
@@ -144,3 +145,11 @@ def pack(items: Sequence[PendingRecord | Atoms | Rejected]) -> MoleculeChunk:
         units=units,
         seed=seed,
     )
+
+
+def packed_chunks(items: Iterable, chunk_size: int):
+    """``(number, make_chunk)`` for consecutive groups of ``chunk_size`` records or molecules,
+    as :func:`molinv.cluster.chunks.run_chunks` takes them; packing waits until a chunk is due."""
+    from molinv.cluster.chunks import chunked
+
+    return ((number, partial(pack, group)) for number, group in chunked(items, chunk_size))

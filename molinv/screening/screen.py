@@ -14,16 +14,16 @@ the chunk files. Memory holds a few chunks at a time.
 from __future__ import annotations
 
 import hashlib
-import json
 from dataclasses import dataclass, field
 from functools import partial
 from pathlib import Path
 
 import pandas as pd
 
-from molinv.cluster.chunks import ChunkReport, chunked, read_tables, run_chunks
+from molinv.cluster.chunks import ChunkError, ChunkReport, claim_folder, read_tables, run_chunks
+from molinv.descriptors.store import molecules_fingerprint
 from molinv.molecules.checks import Rejected
-from molinv.molecules.packed import MoleculeChunk, pack
+from molinv.molecules.packed import MoleculeChunk, packed_chunks
 from molinv.molecules.reading import iter_records
 
 from .table import CAUTION, finish_ranking, prediction_table
@@ -79,37 +79,41 @@ def predict_in_chunks(model, chunks, folder, *, unit: str = "kcal/mol", target: 
     return finish_ranking(read_tables(folder), unit=unit, target=target), reports
 
 
-def packed_chunks(items, chunk_size: int):
-    """``(number, make_chunk)`` for consecutive groups of records or molecules (see :func:`pack`)."""
-    return ((number, partial(pack, group)) for number, group in chunked(items, chunk_size))
-
-
 def screen_file(model, path, out, *, model_fingerprint: str, target: str = "energy", unit: str = "kcal/mol",
                 chunk_size: int = 1000, read_options: dict | None = None, parquet: bool = False,
-                progress: bool | None = None, top: int = 10, executor=None) -> ScreenSummary:
+                progress: bool | None = None, top: int = 10, executor=None,
+                source_label: str | None = None) -> ScreenSummary:
     """Screen every record of ``path`` with a fitted EnergyModel; see the module docstring.
+
+    ``path`` may also be a list of ``ase.Atoms`` already read (named ``source_label``
+    in the screen's record).
 
     ``model_fingerprint`` identifies the model (for example its file's SHA-256), so
     that a folder is resumed only by the same model on the same input. ``executor``
     runs the chunks (default: this process; see :mod:`molinv.cluster`).
     """
-    path, out = Path(path), Path(out)
+    out = Path(out)
     if chunk_size < 1:
         raise ScreenError("chunk_size must be at least 1")
     read_options = dict(read_options or {})
-    out.mkdir(parents=True, exist_ok=True)
-    settings = {"input": str(path.resolve()), "input_sha256": _file_fingerprint(path), "model": model_fingerprint,
+    if isinstance(path, (str, Path)):
+        path = Path(path)
+        label, fingerprint = str(path.resolve()), _file_fingerprint(path)
+        items = iter_records(path, progress=False, **read_options)
+    else:
+        items = list(path)
+        label, fingerprint = source_label or "molecules", molecules_fingerprint(items)
+    settings = {"input": label, "input_sha256": fingerprint, "model": model_fingerprint,
                 "chunk_size": chunk_size, "unit": unit, "target": target,
                 "read_options": {k: str(v) for k, v in read_options.items()}}
-    record = out / "screen.json"
-    if record.exists() and json.loads(record.read_text()) != settings:
-        raise ScreenError(f"{out} holds a screen of another input, model or settings; choose another folder")
-    record.write_text(json.dumps(settings, indent=2))
+    try:
+        claim_folder(out, settings, "screen.json")
+    except ChunkError as error:
+        raise ScreenError(str(error)) from None
 
-    records = iter_records(path, progress=False, **read_options)
-    table, computed = predict_in_chunks(model, packed_chunks(records, chunk_size), out / "chunks", unit=unit,
+    table, computed = predict_in_chunks(model, packed_chunks(items, chunk_size), out / "chunks", unit=unit,
                                         target=target, executor=executor, progress=progress,
-                                        description=f"screen {path.name}")
+                                        description=f"screen {Path(label).name}")
     table_path = out / "ranked.csv"
     table.to_csv(table_path, index=False)
     if parquet:
