@@ -70,7 +70,9 @@ class MoleculeChunk:
                 start, stop = self.offsets[i], self.offsets[i + 1]
                 atoms = Atoms(numbers=self.numbers[start:stop].astype(int), positions=self.positions[start:stop])
                 atoms.info.update(json.loads(str(self.texts[i])))
-                atoms.info.update(record=number, source=source, geometry_source=str(self.geometry_sources[i]))
+                atoms.info.update(record=number, source=source)
+                if self.geometry_sources[i]:
+                    atoms.info["geometry_source"] = str(self.geometry_sources[i])
                 if name is not None:
                     atoms.info["name"] = name
                 if self.smiles[i]:
@@ -128,7 +130,7 @@ def pack(items: Sequence[PendingRecord | Atoms | Rejected]) -> MoleculeChunk:
         else:
             info = item.info
             add(BUILT, int(info.get("record", position)), None, info.get("name"), str(info.get("source", "")),
-                str(info.get("smiles", "")), _scalar_properties(item), str(info.get("geometry_source", "file")), item)
+                str(info.get("smiles", "")), _scalar_properties(item), str(info.get("geometry_source", "")), item)
     return MoleculeChunk(
         kinds=np.array(columns["kinds"], dtype=np.int8),
         records=np.array(columns["records"], dtype=np.int64),
