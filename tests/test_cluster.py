@@ -79,11 +79,10 @@ def test_cluster_screen_equals_local(setting, client, tmp_path):
 def test_killed_worker_loses_no_row(setting, client, tmp_path):
     out = tmp_path / "killed"
     victim = next(iter(client.run(os.getpid).values()))
-    killed_at = []
+    killed_at, screen_over = [], threading.Event()
 
     def kill_after_four_chunks():
-        deadline = time.time() + 120
-        while time.time() < deadline:
+        while not screen_over.is_set():
             done = len(finished_chunks(out / "chunks")) if (out / "chunks").exists() else 0
             if done >= 4:
                 os.kill(victim, signal.SIGKILL)
@@ -93,8 +92,11 @@ def test_killed_worker_loses_no_row(setting, client, tmp_path):
 
     killer = threading.Thread(target=kill_after_four_chunks)
     killer.start()
-    summary = dask_screen(setting, client, out)
-    killer.join()
+    try:
+        summary = dask_screen(setting, client, out)
+    finally:
+        screen_over.set()
+        killer.join()
     assert killed_at and killed_at[0] < N_CHUNKS  # the worker died mid-run
     table = pd.read_csv(summary.table_path)
     assert len(table) == N_CANDIDATES and table["record"].is_unique
@@ -107,7 +109,7 @@ def test_interrupted_run_resumes_without_recomputing(setting, client, tmp_path):
     command = [sys.executable, "-m", "molinv.cli", "screen", str(model_path), str(candidates), "--chunk-size",
                str(CHUNK), "--cluster", client.scheduler.address, "--out", str(out)]
     process = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    deadline = time.time() + 120
+    deadline = time.time() + 600  # the subprocess imports molinv and Dask first: slow on a busy machine
     while (not (out / "chunks").exists() or len(finished_chunks(out / "chunks")) < 3) and time.time() < deadline:
         time.sleep(0.005)
     process.kill()
@@ -157,3 +159,25 @@ def test_packed_chunk_rebuilds_the_records(tmp_path, qm9):
                 assert np.array_equal(packed.positions, direct.positions)
                 for key in ("name", "record", "source", "geometry_source", "energy"):
                     assert packed.info.get(key) == direct.info.get(key)
+
+
+def test_describe_on_the_cluster_equals_transform(client, qm9, tmp_path):
+    from molinv.cluster.dask_cluster import DaskCluster
+    from molinv.descriptors.store import describe_in_chunks
+
+    molecules = qm9.molecules(qm9.sample(160, seed=42))
+    descriptor = make_descriptor("atoms").fit(molecules)
+    expected = descriptor.transform(molecules)
+    found = describe_in_chunks(descriptor, molecules, tmp_path / "parts", chunk_size=40, executor=DaskCluster(client))
+    assert len(list((tmp_path / "parts").glob("part-*.npz"))) == 4
+    for name in ("values", "numbers", "offsets"):
+        assert np.array_equal(getattr(found, name), getattr(expected, name))
+
+
+def test_cluster_option_errors_are_one_line(setting, tmp_path, capsys):
+    from molinv.cli import main
+
+    _, model_path, candidates, _, _ = setting
+    arguments = ["screen", str(model_path), str(candidates), "--out", str(tmp_path / "x"), "--cluster"]
+    assert main(arguments + ["jobqueue:nosuch"]) == 2
+    assert "KIND one of slurm" in capsys.readouterr().err

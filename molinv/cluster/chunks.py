@@ -39,12 +39,14 @@ class ChunkError(RuntimeError):
 
 @dataclass(frozen=True)
 class ChunkReport:
-    """What one finished chunk cost: items in, seconds inside the task, and where it ran."""
+    """What one finished chunk cost: items in, wall and CPU seconds of the worker running it
+    (task and file writing), and where it ran."""
 
     number: int
     items: int
     seconds: float
     worker: str
+    cpu_seconds: float = float("nan")
 
 
 def claim_folder(folder, settings: dict, record_name: str = "settings.json") -> Path:
@@ -108,10 +110,11 @@ def read_arrays(folder) -> Iterator[dict[str, np.ndarray]]:
 
 def compute_and_write(task, number: int, chunk, shared, folder: str) -> ChunkReport:
     """Run one chunk where the executor placed it, and write its file there."""
-    started = time.perf_counter()
+    started, cpu_started = time.perf_counter(), time.process_time()
     result = task(chunk, shared)
     write_part(folder, number, result)
-    return ChunkReport(number, len(chunk), time.perf_counter() - started, f"{socket.gethostname()}:{os.getpid()}")
+    return ChunkReport(number, len(chunk), time.perf_counter() - started, f"{socket.gethostname()}:{os.getpid()}",
+                       time.process_time() - cpu_started)
 
 
 class InProcess:

@@ -74,10 +74,14 @@ class DaskCluster:
         return max(1, len(self.client.scheduler_info(n_workers=-1)["workers"]))
 
     def share(self, value):
-        """Send ``value`` to every worker once; tasks receive it from the worker's memory."""
+        """Send ``value`` to the cluster once; each worker fetches it once and hands it to its tasks.
+
+        It travels as the result of a task rather than as scattered data: if every worker
+        holding it is lost, the scheduler rebuilds it instead of failing the run.
+        """
         if value is None:
             return None
-        return self.client.scatter(value, broadcast=True, hash=False)
+        return self.client.submit(_same, value, key=f"molinv-shared-{os.urandom(4).hex()}", pure=False)
 
     def check_folder(self, folder: Path) -> None:
         seen = self.client.run(os.path.isdir, str(folder))
@@ -104,6 +108,10 @@ class DaskCluster:
             future.release()
             submit_more(running)
             yield result
+
+
+def _same(value):
+    return value
 
 
 def open_cluster(spec: str, n_workers: int | None = None) -> DaskCluster:
