@@ -24,6 +24,7 @@ system that every worker sees at the same path (checked before the run starts).
 from __future__ import annotations
 
 import os
+import warnings
 from itertools import islice
 from pathlib import Path
 from typing import Callable, Iterable, Iterator
@@ -81,7 +82,10 @@ class DaskCluster:
         """
         if value is None:
             return None
-        return self.client.submit(_same, value, key=f"molinv-shared-{os.urandom(4).hex()}", pure=False)
+        with warnings.catch_warnings():
+            # Dask warns about any large task; this one is sent once on purpose.
+            warnings.filterwarnings("ignore", message="Sending large graph", category=UserWarning)
+            return self.client.submit(_same, value, key=f"molinv-shared-{os.urandom(4).hex()}", pure=False)
 
     def check_folder(self, folder: Path) -> None:
         seen = self.client.run(os.path.isdir, str(folder))
