@@ -31,7 +31,7 @@ CLI_READ_OPTIONS = {"file_format": None, "length": "Angstrom", "energy": "eV", "
 
 @pytest.fixture(scope="module")
 def client():
-    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None)
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0")
     with distributed.Client(cluster) as client:
         yield client
     cluster.close()

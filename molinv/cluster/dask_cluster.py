@@ -124,7 +124,7 @@ def open_cluster(spec: str, n_workers: int | None = None) -> DaskCluster:
     spec = spec.strip()
     if spec == "local":
         cluster = distributed.LocalCluster(n_workers=n_workers or os.cpu_count(), threads_per_worker=1,
-                                           processes=True, dashboard_address=None)
+                                           processes=True, dashboard_address=":0")
         return DaskCluster(distributed.Client(cluster), cluster)
     if spec.startswith("jobqueue:"):
         parts = spec.split(":")
