@@ -69,8 +69,9 @@ def read_input(args, require_energy: bool):
         key = energy_key(args)
         if key not in molecules[0].info:
             raise CommandError(f"QM9 has no property {key!r}")
-        for atoms in molecules:
+        for number, atoms in enumerate(molecules, start=1):
             atoms.info["energy"] = atoms.info[key]
+            atoms.info["record"] = number  # as for file records: the position in the input, from 1
         return ReadResult(source=f"QM9 ({CITATION})", molecules=molecules)
     return read_molecules(
         Path(args.input),
@@ -143,6 +144,24 @@ def add_recipe_options(parser, several: bool = False) -> None:
                              "thousands of molecules fit in memory and the kernels faster (default: keep all)")
 
 
+CLUSTER_HELP = ("run the chunks on Dask: 'local' (a local cluster, one worker per core), a scheduler address "
+                "(tcp://HOST:8786), or jobqueue:KIND[:JOBS] for a batch system (KIND: slurm, pbs, sge, lsf, htcondor, "
+                "moab, oar; queue, cores and memory from ~/.config/dask/jobqueue.yaml). The output folder must be "
+                "shared with the workers. Default: this machine, no Dask")
+
+
+def add_execution_options(parser, jobs: bool = True) -> None:
+    if jobs:
+        parser.add_argument("--jobs", type=int, default=1, help="local worker processes (default 1; -1: one per core)")
+    parser.add_argument("--cluster", metavar="WHERE", help=CLUSTER_HELP)
+
+
+def executor(args):
+    from .cluster import executor_for
+
+    return executor_for(args.cluster, args.jobs)
+
+
 def feature_store(args):
     from .descriptors.store import FeatureStore
 
@@ -176,7 +195,16 @@ def run_describe(args) -> int:
     report_rejected(result)
     overrides = descriptor_overrides(args.descriptor, args)
     descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, progress=True, **overrides).fit(result.molecules)
-    features = describe(descriptor, result.molecules, feature_store(args))
+    if args.cluster:
+        from .descriptors.store import describe_in_chunks
+
+        if args.cache:
+            raise CommandError("--cache and --cluster: on a cluster the chunk folder beside --out is the cache")
+        with executor(args) as runner:
+            features = describe_in_chunks(descriptor, result.molecules, chunk_folder(args.out), executor=runner,
+                                          progress=True)
+    else:
+        features = describe(descriptor, result.molecules, feature_store(args))
     arrays = {"names": np.array([str(a.info["name"]) for a in result.molecules]),
               "settings_json": np.array(json.dumps(descriptor.settings()))}
     if descriptor.per_atom:
@@ -207,12 +235,19 @@ def run_fit(args) -> int:
 
 
 def run_predict(args) -> int:
+    import pandas as pd
+
     from .recipes import EnergyModel
     from .screening import CAUTION, prediction_table
 
     model, metadata = EnergyModel.load(args.model_file)
-    result = read_input(args, require_energy=False)
-    table = prediction_table(model, result.molecules, result.rejected, unit=args.unit, target=metadata["target"])
+    if args.cluster or args.jobs != 1:
+        # Chunks beside the output, so that an interrupted prediction resumes.
+        summary = screen(args, model, metadata, chunk_folder(args.out), chunk_size=1000, parquet=False)
+        table = pd.read_csv(summary.table_path, keep_default_na=False, na_values=[""])
+    else:
+        result = read_input(args, require_energy=False)
+        table = prediction_table(model, result.molecules, result.rejected, unit=args.unit, target=metadata["target"])
     table.to_csv(args.out, index=False)
     counts = table["status"].value_counts().to_dict()
     print(f"{len(table)} rows -> {args.out}: " + ", ".join(f"{n} {s}" for s, n in counts.items()))
@@ -256,21 +291,40 @@ def run_curve(args) -> int:
     return 0
 
 
-def run_screen(args) -> int:
+def chunk_folder(out: Path) -> Path:
+    return out.with_name(out.name + ".chunks")
+
+
+def screen(args, model, metadata, out: Path, chunk_size: int, parquet: bool):
+    """screen_file on the input argument (a file, or a QM9 sample) with the chosen executor."""
     import hashlib
 
-    from .recipes import EnergyModel
     from .screening.screen import screen_file
+
+    fingerprint = hashlib.sha256(args.model_file.read_bytes()).hexdigest()
+    common = dict(model_fingerprint=fingerprint, target=metadata["target"], unit=args.unit, chunk_size=chunk_size,
+                  parquet=parquet, progress=True)
+    with executor(args) as runner:
+        if parse_qm9_source(args.input):
+            molecules = read_input(args, require_energy=False).molecules
+            return screen_file(model, molecules, out, source_label=args.input, executor=runner, **common)
+        options = {"file_format": args.file_format, "length": args.length_unit, "energy": args.energy_unit,
+                   "smiles_column": args.smiles_column, "name_column": args.name_column}
+        return screen_file(model, args.input, out, read_options=options, executor=runner, **common)
+
+
+def run_screen(args) -> int:
+    from .recipes import EnergyModel
 
     model, metadata = EnergyModel.load(args.model_file)
     if parse_qm9_source(args.input):
         raise CommandError("screen reads candidate files (.smi, .csv, .sdf, .xyz); use 'predict' for QM9 samples")
-    options = {"file_format": args.file_format, "length": args.length_unit, "energy": args.energy_unit,
-               "smiles_column": args.smiles_column, "name_column": args.name_column}
-    summary = screen_file(model, args.input, args.out, model_fingerprint=hashlib.sha256(args.model_file.read_bytes()).hexdigest(),
-                          target=metadata["target"], unit=args.unit, chunk_size=args.chunk_size, read_options=options,
-                          parquet=args.parquet, progress=True)
+    summary = screen(args, model, metadata, args.out, args.chunk_size, args.parquet)
     print(summary.text(args.unit))
+    if summary.computed:
+        seconds = [report.seconds for report in summary.computed]
+        print(f"{len(seconds)} chunks computed in this run, {sum(seconds) / len(seconds):.1f} s each on average "
+              f"(time inside the workers)")
     return 0
 
 
@@ -467,6 +521,7 @@ def build_parser() -> argparse.ArgumentParser:
     add_input_options(describe)
     add_recipe_options(describe)
     describe.add_argument("--out", type=Path, required=True, help="feature file to write (.npz)")
+    add_execution_options(describe, jobs=False)
     describe.set_defaults(run=run_describe)
 
     fit = verbs.add_parser("fit", help="fit an energy model on labelled molecules into a model file",
@@ -484,6 +539,7 @@ def build_parser() -> argparse.ArgumentParser:
     add_input_options(predict)
     predict.add_argument("--unit", default="kcal/mol", help="energy unit of the output table (default kcal/mol)")
     predict.add_argument("--out", type=Path, required=True, help="table to write (.csv)")
+    add_execution_options(predict)
     predict.set_defaults(run=run_predict)
 
     screen = verbs.add_parser("screen", help="rank a candidate file of any size, in resumable chunks",
@@ -497,6 +553,7 @@ def build_parser() -> argparse.ArgumentParser:
     screen.add_argument("--chunk-size", type=int, default=1000, help="candidates per chunk (default 1000)")
     screen.add_argument("--parquet", action="store_true", help="also write ranked.parquet (needs pyarrow)")
     screen.add_argument("--out", type=Path, required=True, help="output folder (also holds the finished chunks)")
+    add_execution_options(screen)
     screen.set_defaults(run=run_screen)
 
     curve = verbs.add_parser("curve", help="learning curve: test error against training-set size, with a report",
@@ -585,6 +642,8 @@ def main(argv=None) -> int:
     from .molecules.qm9 import Qm9Unavailable
     from .molecules.reading import InputError
     from .molecules.units import UnitError
+    from .cluster.chunks import ChunkError
+    from .cluster.dask_cluster import ClusterError
     from .labels import LabelError
     from .recipes import RecipeError
     from .screening.screen import ScreenError
@@ -593,7 +652,7 @@ def main(argv=None) -> int:
     try:
         return args.run(args)
     except (CommandError, InputError, UnitError, RecipeError, DescriptorError, ModelInputError, ModelFileError,
-            CurveError, Qm9Unavailable, ScreenError, LabelError) as error:
+            CurveError, Qm9Unavailable, ScreenError, LabelError, ChunkError, ClusterError) as error:
         print(f"molinv {args.verb}: error: {error}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

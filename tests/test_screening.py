@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from molinv.cluster import executor_for
 from molinv.recipes import EnergyModel, make_descriptor, make_regressor
 from molinv.screening import prediction_table
 from molinv.screening.screen import screen_file
@@ -30,7 +31,9 @@ def small_model(qm9, tmp_path_factory):
     return model, path
 
 
-def test_mixed_batch_every_row_once_with_the_right_status(tmp_path, small_model):
+@pytest.mark.parametrize("jobs", [1, 2])
+def test_mixed_batch_every_row_once_with_the_right_status(tmp_path, small_model, jobs):
+    # jobs=2: chunks embedded, described and predicted in two worker processes.
     model, path = small_model
     candidates = tmp_path / "batch.csv"
     candidates.write_text(
@@ -43,7 +46,7 @@ def test_mixed_batch_every_row_once_with_the_right_status(tmp_path, small_model)
         "epsilon,CC(=O)OC\n"  # record 6: ok
     )
     summary = screen_file(model, candidates, tmp_path / "out", model_fingerprint="m", target="atomization_energy",
-                          chunk_size=4)
+                          chunk_size=4 if jobs == 1 else 2, executor=executor_for(None, jobs))
     table = pd.read_csv(summary.table_path)
     assert sorted(table["record"]) == [1, 2, 3, 4, 5, 6]
     status = dict(zip(table["record"], table["status"]))

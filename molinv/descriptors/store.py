@@ -10,6 +10,7 @@ an interrupted run keeps its finished chunks and a rerun computes only the rest.
 
 from __future__ import annotations
 
+import copy
 import hashlib
 import json
 import os
@@ -29,6 +30,14 @@ def molecule_key(atoms: Atoms) -> str:
     digest.update(np.ascontiguousarray(atoms.numbers, dtype=np.int64).tobytes())
     digest.update(np.ascontiguousarray(atoms.positions, dtype=np.float64).tobytes())
     return digest.hexdigest()
+
+
+def molecules_fingerprint(molecules: Sequence[Atoms]) -> str:
+    """Identity of a list of molecules: elements and exact coordinates, in order."""
+    digest = hashlib.sha256()
+    for atoms in molecules:
+        digest.update(molecule_key(atoms).encode())
+    return digest.hexdigest()[:16]
 
 
 def settings_key(settings: dict) -> str:
@@ -115,3 +124,35 @@ class FeatureStore:
             return AtomFeatures.from_blocks([cached[k][0] for k in keys], [cached[k][1] for k in keys],
                                             descriptor.elements_)
         return np.vstack([cached[k][0] for k in keys])
+
+
+def describe_chunk(chunk, descriptor) -> dict[str, np.ndarray]:
+    """Features of one packed chunk of molecules (a :func:`~molinv.cluster.chunks.run_chunks` task)."""
+    features = descriptor.transform(chunk.unpack())
+    if isinstance(features, AtomFeatures):
+        return {"values": features.values, "numbers": features.numbers, "offsets": features.offsets}
+    return {"values": features}
+
+
+def describe_in_chunks(descriptor: MoleculeDescriptor, molecules: Sequence[Atoms], folder, *, chunk_size: int = 1000,
+                       executor=None, progress: bool | None = None):
+    """What ``descriptor.transform(molecules)`` returns, computed chunk by chunk into ``folder``
+    (one ``.npz`` per chunk, written as it finishes; a rerun computes only the missing ones)
+    by ``executor`` (this process, local processes or a Dask cluster; see :mod:`molinv.cluster`)."""
+    from molinv.cluster.chunks import claim_folder, read_arrays, run_chunks
+    from molinv.molecules.packed import packed_chunks
+
+    molecules = validate_molecules(molecules)
+    claim_folder(folder, {"descriptor": descriptor.settings(), "molecules": molecules_fingerprint(molecules),
+                          "chunk_size": chunk_size})
+    # Parallel work happens across chunks; inside one, the descriptor runs in its worker alone.
+    worker_copy = copy.copy(descriptor).set_params(n_jobs=1, progress=False)
+    run_chunks(describe_chunk, packed_chunks(molecules, chunk_size), folder, shared=worker_copy, executor=executor,
+               total=len(molecules), progress=progress, description=f"describe {type(descriptor).__name__}")
+    parts = list(read_arrays(folder))
+    values = np.concatenate([part["values"] for part in parts])
+    if not descriptor.per_atom:
+        return values
+    sizes = np.concatenate([np.diff(part["offsets"]) for part in parts])
+    return AtomFeatures(values, np.concatenate([part["numbers"] for part in parts]),
+                        np.concatenate([[0], np.cumsum(sizes)]).astype(int), descriptor.elements_)

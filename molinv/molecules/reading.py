@@ -17,7 +17,7 @@ import io
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Iterable, Iterator, Sequence
+from typing import Callable, Iterable, Iterator, Sequence
 
 import numpy as np
 import pandas as pd
@@ -141,6 +141,50 @@ def iter_molecules(
         The first records are passed over without being built (resuming a run).
     """
 
+    for record in iter_records(path, file_format=file_format, length=length, energy=energy, energy_keys=energy_keys,
+                               require_energy=require_energy, smiles_column=smiles_column, name_column=name_column,
+                               seed=seed, progress=progress, skip_records=skip_records):
+        yield record.build_molecule()
+
+
+@dataclass(frozen=True)
+class PendingRecord:
+    """A record located in a file but not built yet.
+
+    Building parses it, or embeds its SMILES (the slow part of reading a SMILES
+    file), then converts units and checks the geometry. Keeping the two apart
+    lets a screen send SMILES to worker processes and build them there.
+    """
+
+    source: str
+    number: int
+    line: int | None
+    name: str | None
+    build: Callable[[], Atoms]
+    units: UnitsDeclared
+
+    @property
+    def smiles(self) -> str | None:
+        """The SMILES to embed, or None when the record holds coordinates."""
+        return self.build.smiles if isinstance(self.build, SmilesBuilder) else None
+
+    def build_molecule(self) -> Atoms | Rejected:
+        try:
+            atoms = self.build()
+            _finish(atoms, self.units, self.name or f"{Path(self.source).stem}:{self.number}",
+                    f"{self.source}:{self.number}")
+        except MoleculeError as error:
+            return Rejected(self.source, self.number, self.line, self.name, str(error))
+        atoms.info["record"] = self.number
+        return atoms
+
+
+def iter_records(path, *, file_format: str | None = None, length: str = "Angstrom", energy: str = "eV",
+                 energy_keys: Sequence[str] = ("energy",), require_energy: bool = False,
+                 smiles_column: str | None = None, name_column: str | None = None, seed: int = EMBED_SEED,
+                 progress: bool | None = None, skip_records: int = 0) -> Iterator[PendingRecord]:
+    """Each record of a file in order, located but not built (see :class:`PendingRecord`);
+    parameters as for :func:`iter_molecules`."""
     path = Path(path)
     if not path.is_file():
         raise InputError(f"{path}: no such file")
@@ -157,16 +201,8 @@ def iter_molecules(
     else:
         raise InputError(f"{path}: unknown format {fmt!r}; choose xyz, sdf, smiles or csv")
     for number, line, name, build in tqdm(records, desc=path.name, unit="rec", disable=_disabled(progress)):
-        if number <= skip_records:
-            continue
-        try:
-            atoms = build()
-            _finish(atoms, units, name or f"{path.stem}:{number}", f"{path}:{number}")
-        except MoleculeError as error:
-            yield Rejected(str(path), number, line, name, str(error))
-        else:
-            atoms.info["record"] = number
-            yield atoms
+        if number > skip_records:
+            yield PendingRecord(str(path), number, line, name, build, units)
 
 
 def _disabled(progress):
@@ -337,16 +373,21 @@ def _smiles_records(path: Path, seed: int) -> Iterator[Record]:
                 continue
             number += 1
             name = fields[1].strip() if len(fields) > 1 else None
-            yield number, line_number, name, _smiles_builder(fields[0], seed, {})
+            yield number, line_number, name, SmilesBuilder(fields[0], seed, {})
 
 
-def _smiles_builder(smiles: str, seed: int, properties: dict):
-    def build() -> Atoms:
-        atoms = embed_smiles(smiles, seed=seed)
-        atoms.info.update(properties)
+@dataclass(frozen=True)
+class SmilesBuilder:
+    """Builds one SMILES record: embedding, then the record's other columns as properties."""
+
+    smiles: str
+    seed: int
+    properties: dict
+
+    def __call__(self) -> Atoms:
+        atoms = embed_smiles(self.smiles, seed=self.seed)
+        atoms.info.update(self.properties)
         return atoms
-
-    return build
 
 
 def _find_column(columns: Iterable[str], wanted: str | None, defaults: tuple[str, ...], path: Path) -> str | None:
@@ -403,4 +444,4 @@ def _csv_records(path: Path, smiles_column: str | None, name_column: str | None,
                 properties[key] = number if number is not None else text
             name = values[name_key].strip() if name_key and values[name_key].strip() else None
             # Line numbers count the header as line 1 (quoted newlines inside cells would shift them).
-            yield row_number, row_number + 1, name, _smiles_builder(values[smiles_key], seed, properties)
+            yield row_number, row_number + 1, name, SmilesBuilder(values[smiles_key], seed, properties)

@@ -1,26 +1,30 @@
 """Screening a candidate file of any length in chunks that survive interruption.
 
-The input is read record by record; every ``chunk_size`` records are predicted
-together and written to ``<out>/chunks/part-NNNNNN.csv`` before the next chunk
-starts. A restarted screen skips the records of the finished chunks without
-building them (no re-embedding), so it resumes where it stopped; the final
-table is assembled from the chunk files. Memory holds one chunk at a time.
+The input is read record by record; every ``chunk_size`` records form a chunk
+(SMILES still as text, other records as packed arrays, see
+:mod:`molinv.molecules.packed`) that is embedded, described and predicted
+together and written to ``<out>/chunks/part-NNNNNN.csv`` as soon as it finishes.
+Chunks run in this process, in local worker processes or on a Dask cluster
+(``executor``, see :mod:`molinv.cluster`); the table is the same. A restarted
+screen skips the finished chunks without building their records (no
+re-embedding), so it resumes where it stopped; the final table is assembled from
+the chunk files. Memory holds a few chunks at a time.
 """
 
 from __future__ import annotations
 
 import hashlib
-import json
-import os
-from dataclasses import dataclass
-from itertools import islice
+from dataclasses import dataclass, field
+from functools import partial
 from pathlib import Path
 
 import pandas as pd
-from tqdm.auto import tqdm
 
+from molinv.cluster.chunks import ChunkError, ChunkReport, claim_folder, read_tables, run_chunks
+from molinv.descriptors.store import molecules_fingerprint
 from molinv.molecules.checks import Rejected
-from molinv.molecules.reading import iter_molecules
+from molinv.molecules.packed import MoleculeChunk, packed_chunks
+from molinv.molecules.reading import iter_records
 
 from .table import CAUTION, finish_ranking, prediction_table
 
@@ -37,6 +41,8 @@ class ScreenSummary:
     failed: int
     table_path: Path
     top: pd.DataFrame
+    #: Chunks computed by this call (finished ones from an earlier run are skipped).
+    computed: list[ChunkReport] = field(default_factory=list)
 
     def text(self, unit: str) -> str:
         lines = [f"{self.rows} candidates: {self.ok} ok, {self.flagged} flagged, {self.failed} failed",
@@ -54,48 +60,60 @@ def _file_fingerprint(path: Path) -> str:
     return digest.hexdigest()[:16]
 
 
+def predict_chunk(chunk: MoleculeChunk, model, *, unit: str, target: str) -> pd.DataFrame:
+    """Unranked prediction table of one chunk (embedding its SMILES first); a chunk task."""
+    items = chunk.unpack()
+    molecules = [item for item in items if not isinstance(item, Rejected)]
+    rejected = [item for item in items if isinstance(item, Rejected)]
+    return prediction_table(model, molecules, rejected, unit=unit, target=target, rank=False)
+
+
+def predict_in_chunks(model, chunks, folder, *, unit: str = "kcal/mol", target: str = "energy", executor=None,
+                      total: int | None = None, progress: bool | None = None,
+                      description: str = "predict") -> tuple[pd.DataFrame, list[ChunkReport]]:
+    """Ranked prediction table of numbered chunks of records, each chunk written to ``folder``
+    as it finishes (see :func:`molinv.cluster.chunks.run_chunks`; ``chunks`` yields
+    ``(number, make_chunk)``). Returns the table and the reports of the chunks computed."""
+    reports = run_chunks(partial(predict_chunk, unit=unit, target=target), chunks, folder, shared=model,
+                         executor=executor, total=total, progress=progress, description=description)
+    return finish_ranking(read_tables(folder), unit=unit, target=target), reports
+
+
 def screen_file(model, path, out, *, model_fingerprint: str, target: str = "energy", unit: str = "kcal/mol",
                 chunk_size: int = 1000, read_options: dict | None = None, parquet: bool = False,
-                progress: bool | None = None, top: int = 10) -> ScreenSummary:
+                progress: bool | None = None, top: int = 10, executor=None,
+                source_label: str | None = None) -> ScreenSummary:
     """Screen every record of ``path`` with a fitted EnergyModel; see the module docstring.
 
+    ``path`` may also be a list of ``ase.Atoms`` already read (named ``source_label``
+    in the screen's record).
+
     ``model_fingerprint`` identifies the model (for example its file's SHA-256), so
-    that a folder is resumed only by the same model on the same input.
+    that a folder is resumed only by the same model on the same input. ``executor``
+    runs the chunks (default: this process; see :mod:`molinv.cluster`).
     """
-    path, out = Path(path), Path(out)
+    out = Path(out)
     if chunk_size < 1:
         raise ScreenError("chunk_size must be at least 1")
     read_options = dict(read_options or {})
-    chunks = out / "chunks"
-    chunks.mkdir(parents=True, exist_ok=True)
-    settings = {"input": str(path.resolve()), "input_sha256": _file_fingerprint(path), "model": model_fingerprint,
+    if isinstance(path, (str, Path)):
+        path = Path(path)
+        label, fingerprint = str(path.resolve()), _file_fingerprint(path)
+        items = iter_records(path, progress=False, **read_options)
+    else:
+        items = list(path)
+        label, fingerprint = source_label or "molecules", molecules_fingerprint(items)
+    settings = {"input": label, "input_sha256": fingerprint, "model": model_fingerprint,
                 "chunk_size": chunk_size, "unit": unit, "target": target,
                 "read_options": {k: str(v) for k, v in read_options.items()}}
-    record = out / "screen.json"
-    if record.exists() and json.loads(record.read_text()) != settings:
-        raise ScreenError(f"{out} holds a screen of another input, model or settings; choose another folder")
-    record.write_text(json.dumps(settings, indent=2))
+    try:
+        claim_folder(out, settings, "screen.json")
+    except ChunkError as error:
+        raise ScreenError(str(error)) from None
 
-    done = sorted(chunks.glob("part-*.csv"))
-    first_chunk = len(done)
-    records = iter_molecules(path, skip_records=first_chunk * chunk_size, **read_options)
-    with tqdm(desc=f"screen {path.name}", unit="mol", initial=first_chunk * chunk_size,
-              disable=None if progress is None else not progress) as bar:
-        for number in range(first_chunk, 10**9):
-            items = list(islice(records, chunk_size))
-            if not items:
-                break
-            molecules = [item for item in items if not isinstance(item, Rejected)]
-            rejected = [item for item in items if isinstance(item, Rejected)]
-            table = prediction_table(model, molecules, rejected, unit=unit, target=target, rank=False)
-            target_file = chunks / f"part-{number:06d}.csv"
-            partial = chunks / f".part-{number:06d}.{os.getpid()}.tmp"
-            table.to_csv(partial, index=False)
-            os.replace(partial, target_file)
-            bar.update(len(items))
-
-    parts = [pd.read_csv(p, keep_default_na=False, na_values=[""]) for p in sorted(chunks.glob("part-*.csv"))]
-    table = finish_ranking(pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(), unit=unit, target=target)
+    table, computed = predict_in_chunks(model, packed_chunks(items, chunk_size), out / "chunks", unit=unit,
+                                        target=target, executor=executor, progress=progress,
+                                        description=f"screen {Path(label).name}")
     table_path = out / "ranked.csv"
     table.to_csv(table_path, index=False)
     if parquet:
@@ -107,6 +125,6 @@ def screen_file(model, path, out, *, model_fingerprint: str, target: str = "ener
     value = f"{target}_{unit}"
     best = table[table["status"] == "ok"].head(top)[["rank", "name", "formula", value, f"std_{unit}"]]
     summary = ScreenSummary(len(table), int(counts.get("ok", 0)), int(counts.get("flagged", 0)),
-                            int(counts.get("failed", 0)), table_path, best)
+                            int(counts.get("failed", 0)), table_path, best, computed)
     (out / "summary.txt").write_text(summary.text(unit) + "\n")
     return summary

@@ -98,9 +98,10 @@ def finish_ranking(table: pd.DataFrame, unit: str, target: str) -> pd.DataFrame:
     repeated = table["name"].notna() & table.duplicated("name", keep="first")
     first_record = table.groupby("name")["record"].transform("first")
     table.loc[repeated & (table["status"] == "ok"), "status"] = "flagged"
-    note = "name also used by record " + first_record[repeated].astype("Int64").astype(str)
-    table.loc[repeated, "reason"] = np.where(table.loc[repeated, "reason"].fillna("") == "", note,
-                                             table.loc[repeated, "reason"].fillna("") + "; " + note)
+    # Read back from chunk files, a column of empty reasons is all NaN (float): make it text first.
+    reasons = table["reason"].fillna("").astype(str)
+    note = "name also used by record " + first_record.astype("Int64").astype(str)
+    table["reason"] = reasons.where(~repeated, reasons.where(reasons == "", reasons + "; ") + note)
     table[f"{target}_per_atom_{unit}"] = table[value_column] / table["n_atoms"]
     larger_is_stabler = target == "atomization_energy"
     predicted = table[value_column].where(table["status"] != "failed")

@@ -1,0 +1,153 @@
+"""Running chunks on a Dask cluster: a scheduler address, a local cluster, or a batch system.
+
+Dask (``dask.distributed``) is imported only here, and only when a cluster is
+asked for; the local path never needs it (``pip install 'molinv[cluster]'``).
+
+Where the cluster comes from (:func:`open_cluster`):
+
+``local``
+    A ``LocalCluster`` on this machine: one single-threaded worker process per core
+    (or ``n_workers``).
+``tcp://HOST:PORT`` (or ``HOST:PORT``)
+    A running scheduler, for example one started with ``dask scheduler`` and
+    ``dask worker tcp://HOST:PORT`` on each machine.
+``jobqueue:KIND[:JOBS]``
+    A batch-system cluster from dask-jobqueue (KIND: slurm, pbs, sge, lsf,
+    htcondor, moab or oar), with ``JOBS`` batch jobs (default 1) of workers.
+    Queue, cores, memory and wall time come from dask-jobqueue's own settings
+    (``~/.config/dask/jobqueue.yaml``); see the README for an example.
+
+Chunk files are written by the workers, so the output folder must be on a file
+system that every worker sees at the same path (checked before the run starts).
+"""
+
+from __future__ import annotations
+
+import os
+import warnings
+from itertools import islice
+from pathlib import Path
+from typing import Callable, Iterable, Iterator
+
+JOBQUEUE_KINDS = {"slurm": "SLURMCluster", "pbs": "PBSCluster", "sge": "SGECluster", "lsf": "LSFCluster",
+                  "htcondor": "HTCondorCluster", "moab": "MoabCluster", "oar": "OARCluster"}
+
+
+class ClusterError(RuntimeError):
+    """A cluster that cannot be reached or set up, or workers that cannot see the output folder."""
+
+
+def _dask():
+    try:
+        import dask  # noqa: F401
+        from dask import distributed
+    except ImportError as error:
+        raise ClusterError(f"running on a cluster needs Dask: pip install 'molinv[cluster]' ({error})") from None
+    return distributed
+
+
+class DaskCluster:
+    """Executor for :func:`molinv.cluster.chunks.run_chunks` on a Dask client.
+
+    Keeps at most ``window`` chunks submitted at a time (default: twice the
+    workers), so chunks are built only shortly before a worker is free and memory
+    stays flat however long the input. A chunk lost with a worker is resubmitted by
+    the scheduler; its file is written only when complete, so no row is written twice.
+    """
+
+    def __init__(self, client, cluster=None, window: int | None = None):
+        self.client = client
+        self.cluster = cluster
+        self.window = window
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+    def close(self) -> None:
+        self.client.close()
+        if self.cluster is not None:
+            self.cluster.close()
+
+    def n_workers(self) -> int:
+        return max(1, len(self.client.scheduler_info(n_workers=-1)["workers"]))
+
+    def share(self, value):
+        """Send ``value`` to the cluster once; each worker fetches it once and hands it to its tasks.
+
+        It travels as the result of a task rather than as scattered data: if every worker
+        holding it is lost, the scheduler rebuilds it instead of failing the run.
+        """
+        if value is None:
+            return None
+        with warnings.catch_warnings():
+            # Dask warns about any large task; this one is sent once on purpose.
+            warnings.filterwarnings("ignore", message="Sending large graph", category=UserWarning)
+            return self.client.submit(_same, value, key=f"molinv-shared-{os.urandom(4).hex()}", pure=False)
+
+    def check_folder(self, folder: Path) -> None:
+        seen = self.client.run(os.path.isdir, str(folder))
+        blind = sorted(worker for worker, ok in seen.items() if not ok)
+        if blind:
+            raise ClusterError(f"workers {', '.join(blind)} cannot see the output folder {folder}; "
+                               "put it on a file system shared by every worker")
+
+    def map_unordered(self, function: Callable, calls: Iterable[tuple]) -> Iterator:
+        distributed = _dask()
+        calls = iter(calls)
+
+        def submit_more(running):
+            # Workers may come and go (batch jobs, lost workers): size the window each time.
+            wanted = self.window or 2 * self.n_workers()
+            for arguments in islice(calls, max(0, wanted - running.count())):
+                key = f"molinv-chunk-{arguments[1]:06d}-{os.urandom(4).hex()}"
+                running.add(self.client.submit(function, *arguments, key=key, pure=False))
+
+        running = distributed.as_completed()
+        submit_more(running)
+        for future in running:
+            result = future.result()
+            future.release()
+            submit_more(running)
+            yield result
+
+
+def _same(value):
+    return value
+
+
+def open_cluster(spec: str, n_workers: int | None = None) -> DaskCluster:
+    """A :class:`DaskCluster` for ``spec`` ('local', a scheduler address, or 'jobqueue:KIND[:JOBS]')."""
+    distributed = _dask()
+    spec = spec.strip()
+    if spec == "local":
+        cluster = distributed.LocalCluster(n_workers=n_workers or os.cpu_count(), threads_per_worker=1,
+                                           processes=True, dashboard_address=":0")
+        return DaskCluster(distributed.Client(cluster), cluster)
+    if spec.startswith("jobqueue:"):
+        parts = spec.split(":")
+        kind = parts[1].lower() if len(parts) > 1 else ""
+        if kind not in JOBQUEUE_KINDS:
+            raise ClusterError(f"cannot read {spec!r}: write jobqueue:KIND[:JOBS], KIND one of {', '.join(JOBQUEUE_KINDS)}")
+        try:
+            jobs = int(parts[2]) if len(parts) > 2 else 1
+        except ValueError:
+            raise ClusterError(f"cannot read {spec!r}: JOBS must be a whole number") from None
+        try:
+            import dask_jobqueue
+        except ImportError as error:
+            raise ClusterError(f"batch-system clusters need dask-jobqueue: pip install 'molinv[cluster]' ({error})") from None
+        try:
+            cluster = getattr(dask_jobqueue, JOBQUEUE_KINDS[kind])()
+        except ValueError as error:  # dask-jobqueue names missing settings (cores, memory) this way
+            raise ClusterError(f"{JOBQUEUE_KINDS[kind]}: {error} (set it in ~/.config/dask/jobqueue.yaml)") from None
+        cluster.scale(jobs=jobs)
+        return DaskCluster(distributed.Client(cluster), cluster)
+    address = spec if "://" in spec else f"tcp://{spec}"
+    try:
+        client = distributed.Client(address, timeout="30s")
+    except OSError as error:
+        raise ClusterError(f"cannot reach the Dask scheduler at {address}: {error}") from None
+    return DaskCluster(client)
