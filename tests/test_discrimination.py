@@ -50,7 +50,7 @@ def test_qm9_holds_the_isomers(isomers):
     assert len(isomers) == 6095 - 1
 
 
-@pytest.mark.parametrize("name", ["coulomb", "bonds", "density-exact"])
+@pytest.mark.parametrize("name", ["coulomb", "bonds", "density-exact", "density"])
 def test_global_descriptors_tell_all_isomers_apart(isomers, name):
     vectors = make_descriptor(name).fit(isomers).transform(isomers)
     # Coordinates in QM9 carry 10 significant digits; distinct structures differ far above 1e-6.
