@@ -163,6 +163,17 @@ def median_distance(features, kernel, random_state: int, n_pairs: int = 20000) -
     return median
 
 
+def width_unit_value(width_unit: str, features, kernel, random_state: int) -> float:
+    """1 for absolute widths; for ``width_unit="median"`` the median distance between
+    training rows (same-element atoms for atom features), so that one grid suits any
+    descriptor's scale (a common heuristic for kernel widths; no source)."""
+    if width_unit == "absolute":
+        return 1.0
+    if width_unit != "median":
+        raise ModelInputError(f"width_unit must be 'absolute' or 'median', got {width_unit!r}")
+    return median_distance(features, kernel, random_state)
+
+
 def fit_scaling(values: np.ndarray, scale: bool) -> tuple[np.ndarray, np.ndarray]:
     """Per-feature mean and standard deviation (1 where constant); identity when ``scale`` is false."""
     if not scale:
@@ -295,14 +306,7 @@ class _GridSearch:
     """
 
     def _width_unit_value(self, features) -> float:
-        """1 for absolute widths; for ``width_unit="median"`` the median distance between
-        training rows (same-element atoms for atom features), so that one grid suits any
-        descriptor's scale (a common heuristic for kernel widths; no source)."""
-        if self.width_unit == "absolute":
-            return 1.0
-        if self.width_unit != "median":
-            raise ModelInputError(f"width_unit must be 'absolute' or 'median', got {self.width_unit!r}")
-        return median_distance(features, self._make_kernel(), self.random_state)
+        return width_unit_value(self.width_unit, features, self._make_kernel(), self.random_state)
 
     def _folds(self, n: int):
         splitter = KFold(self.cv, shuffle=True, random_state=self.random_state) if isinstance(self.cv, int) else self.cv

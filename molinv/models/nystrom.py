@@ -60,7 +60,7 @@ from molinv.models.kernel_ridge import (
     fit_scaling,
     forget_uncertainty,
     interval_scale,
-    median_distance,
+    width_unit_value,
 )
 from molinv.models.kernels import (
     ATOM_DTYPES,
@@ -358,13 +358,9 @@ class NystromRidgeCV(NystromRidge):
         self.progress = progress
 
     def _width_unit_value(self, X) -> float:
-        if self.width_unit == "absolute":
-            return 1.0
-        if self.width_unit != "median":
-            raise ModelInputError(f"width_unit must be 'absolute' or 'median', got {self.width_unit!r}")
         if self.kernel == "atomwise":
-            return median_distance(X, None, self.random_state)
-        return median_distance(self._scaled(X), GlobalKernel(self.kernel), self.random_state)
+            return width_unit_value(self.width_unit, X, None, self.random_state)
+        return width_unit_value(self.width_unit, self._scaled(X), GlobalKernel(self.kernel), self.random_state)
 
     def fit(self, X, y):
         self._check_settings()
