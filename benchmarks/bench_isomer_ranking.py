@@ -1,6 +1,7 @@
 """Ranking held-out C7H10O2 isomers of QM9 by predicted atomization energy (from U0).
 
-    python benchmarks/bench_isomer_ranking.py --train 10000 --isomers 1000
+    python benchmarks/bench_isomer_ranking.py --train 10000 --isomers 6094 --model large \
+        --atom-components 128 --jobs 2
 
 Training molecules are drawn from QM9 without any C7H10O2 isomer; --isomers of the
 6,094 C7H10O2 isomers are ranked by the model and compared with QM9's order by
@@ -17,6 +18,7 @@ import time
 import numpy as np
 from scipy import stats
 
+from molinv.evaluation.curves import chosen_hyperparameters
 from molinv.molecules.qm9 import open_qm9
 from molinv.molecules.units import convert_energy
 from molinv.recipes import EnergyModel, make_descriptor, make_regressor
@@ -28,6 +30,9 @@ def main() -> None:
     parser.add_argument("--isomers", type=int, default=1000)
     parser.add_argument("--descriptor", default="atoms")
     parser.add_argument("--model", default="kernel")
+    parser.add_argument("--atom-components", type=int, default=None,
+                        help="project the 'atoms' vectors on this many principal directions per element")
+    parser.add_argument("--jobs", type=int, default=1, help="processes for describing")
     parser.add_argument("--seed", type=int, default=0)
     args = parser.parse_args()
 
@@ -37,7 +42,8 @@ def main() -> None:
     rng = np.random.default_rng(args.seed)
     train = qm9.molecules(rng.choice(np.flatnonzero(~is_isomer), args.train, replace=False))
     isomers = qm9.molecules(rng.choice(np.flatnonzero(is_isomer), args.isomers, replace=False))
-    descriptor = make_descriptor(args.descriptor)
+    overrides = {"n_components": args.atom_components} if args.atom_components is not None else {}
+    descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, **overrides)
     model = EnergyModel(descriptor, make_regressor(args.model, descriptor.per_atom))
     started = time.perf_counter()
     model.fit(train, [m.info["atomization_energy"] for m in train])
@@ -50,6 +56,9 @@ def main() -> None:
     print(f"{args.descriptor} + {args.model}, {args.train} training molecules (fit {fitted:.0f} s), "
           f"{args.isomers} held-out C7H10O2 isomers:")
     print(f"  Spearman rank correlation {rho:.3f}; MAE {mae:.2f} kcal/mol; spread of the isomers {spread:.1f} kcal/mol")
+    chosen = chosen_hyperparameters(model.regressor_)
+    if chosen:
+        print("  hyperparameters: " + ", ".join(f"{k}={v:g}" for k, v in chosen.items()))
 
 
 if __name__ == "__main__":
