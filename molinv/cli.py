@@ -57,9 +57,11 @@ def energy_key(args) -> str:
     return "atomization_energy" if parse_qm9_source(args.input) else "energy"
 
 
-def read_input(args, require_energy: bool):
-    """Molecules of the input argument, as a ReadResult (energies in eV)."""
+def read_input(args, require_energy: bool, runner=None, folder: Path | None = None):
+    """Molecules of the input argument, as a ReadResult (energies in eV). With ``runner``
+    (an executor), a file's records are built (SMILES embedded) there, chunks kept in ``folder``."""
     from .molecules import ReadResult, read_molecules
+    from .molecules.packed import read_in_chunks
 
     qm9 = parse_qm9_source(args.input)
     if qm9 is not None:
@@ -73,17 +75,12 @@ def read_input(args, require_energy: bool):
             atoms.info["energy"] = atoms.info[key]
             atoms.info["record"] = number  # as for file records: the position in the input, from 1
         return ReadResult(source=f"QM9 ({CITATION})", molecules=molecules)
-    return read_molecules(
-        Path(args.input),
-        file_format=args.file_format,
-        length=args.length_unit,
-        energy=args.energy_unit,
-        energy_keys=(energy_key(args),),
-        require_energy=require_energy,
-        smiles_column=args.smiles_column,
-        name_column=args.name_column,
-        progress=True,
-    )
+    options = dict(file_format=args.file_format, length=args.length_unit, energy=args.energy_unit,
+                   energy_keys=(energy_key(args),), require_energy=require_energy,
+                   smiles_column=args.smiles_column, name_column=args.name_column)
+    if runner is not None:
+        return read_in_chunks(Path(args.input), folder, executor=runner, progress=True, **options)
+    return read_molecules(Path(args.input), progress=True, **options)
 
 
 def report_rejected(result, limit: int = 10) -> None:
@@ -189,22 +186,27 @@ def run_describe(args) -> int:
 
     import numpy as np
 
+    from .cluster.chunks import folder_beside
     from .recipes import describe, make_descriptor
 
-    result = read_input(args, require_energy=False)
-    report_rejected(result)
     overrides = descriptor_overrides(args.descriptor, args)
-    descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, progress=True, **overrides).fit(result.molecules)
+    descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, progress=True, **overrides)
     if args.cluster:
         from .descriptors.store import describe_in_chunks
 
         if args.cache:
             raise CommandError("--cache and --cluster: on a cluster the chunk folder beside --out is the cache")
+        folder = folder_beside(args.out)
         with executor(args) as runner:
-            features = describe_in_chunks(descriptor, result.molecules, chunk_folder(args.out), executor=runner,
-                                          progress=True)
+            # The workers embed SMILES; the descriptor is fitted here on all the molecules, as locally.
+            result = read_input(args, require_energy=False, runner=runner, folder=folder / "read")
+            report_rejected(result)
+            descriptor.fit(result.molecules)
+            features = describe_in_chunks(descriptor, result.molecules, folder, executor=runner, progress=True)
     else:
-        features = describe(descriptor, result.molecules, feature_store(args))
+        result = read_input(args, require_energy=False)
+        report_rejected(result)
+        features = describe(descriptor.fit(result.molecules), result.molecules, feature_store(args))
     arrays = {"names": np.array([str(a.info["name"]) for a in result.molecules]),
               "settings_json": np.array(json.dumps(descriptor.settings()))}
     if descriptor.per_atom:
@@ -237,13 +239,14 @@ def run_fit(args) -> int:
 def run_predict(args) -> int:
     import pandas as pd
 
+    from .cluster.chunks import folder_beside
     from .recipes import EnergyModel
     from .screening import CAUTION, prediction_table
 
     model, metadata = EnergyModel.load(args.model_file)
     if args.cluster or args.jobs != 1:
         # Chunks beside the output, so that an interrupted prediction resumes.
-        summary = screen(args, model, metadata, chunk_folder(args.out), chunk_size=1000, parquet=False)
+        summary = screen(args, model, metadata, folder_beside(args.out), chunk_size=1000, parquet=False)
         table = pd.read_csv(summary.table_path, keep_default_na=False, na_values=[""])
     else:
         result = read_input(args, require_energy=False)
@@ -289,10 +292,6 @@ def run_curve(args) -> int:
                         data_citation=CITATION if parse_qm9_source(args.input) else str(args.input))
     print(f"report: {page}")
     return 0
-
-
-def chunk_folder(out: Path) -> Path:
-    return out.with_name(out.name + ".chunks")
 
 
 def screen(args, model, metadata, out: Path, chunk_size: int, parquet: bool):
@@ -350,6 +349,8 @@ def label_method(args):
 
 
 def run_label(args) -> int:
+    from contextlib import nullcontext
+
     from .labels import label_molecules, read_labels
 
     method = label_method(args)
@@ -357,8 +358,9 @@ def run_label(args) -> int:
     report_rejected(result)
     if not result.molecules:
         raise CommandError("no usable molecules to compute")
-    summary = label_molecules(result.molecules, method, args.out, n_jobs=args.jobs, chunk_size=args.chunk_size,
-                              retry_failed=args.retry_failed, progress=True)
+    with executor(args) if args.cluster else nullcontext() as runner:
+        summary = label_molecules(result.molecules, method, args.out, n_jobs=args.jobs, chunk_size=args.chunk_size,
+                                  retry_failed=args.retry_failed, progress=True, executor=runner)
     print(f"{method.name}: {summary.text()}")
     table = read_labels(args.out, method)
     failed = table[table["status"] == "failed"]
@@ -574,9 +576,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     label = verbs.add_parser("label", help="compute reference energies (HF, DFT or GFN2-xTB) into a labels file",
                              description="Compute the total and atomization energy of every molecule with PySCF or "
-                                         "tblite, in parallel single-thread processes; each row is written as it "
-                                         "finishes, failures keep their reason, and a rerun skips names already in "
-                                         "the file. Closed-shell molecules only. " + UNITS_HELP)
+                                         "tblite, in parallel single-thread processes or on a Dask cluster; each "
+                                         "chunk's rows are written as it finishes (via OUT.chunks/), failures keep "
+                                         "their reason, and a rerun skips names already in the file. Closed-shell "
+                                         "molecules only. " + UNITS_HELP)
     add_input_options(label)
     add_method_options(label)
     label.add_argument("--jobs", type=int, default=1, help="worker processes, one thread each (default 1)")
@@ -584,6 +587,7 @@ def build_parser() -> argparse.ArgumentParser:
                        help="molecules per task (default 1 for hf/dft, 16 for xtb)")
     label.add_argument("--retry-failed", action="store_true", help="recompute molecules whose earlier row failed")
     label.add_argument("--out", type=Path, required=True, help="labels file (.csv), appended to")
+    add_execution_options(label, jobs=False)
     label.set_defaults(run=run_label)
 
     pick = verbs.add_parser("pick", help="choose the next k candidates worth computing",

@@ -23,3 +23,13 @@ def qm9():
 def qm9_sample(qm9):
     """50 QM9 molecules, fixed seed."""
     return qm9.molecules(qm9.sample(50, seed=7))
+
+
+@pytest.fixture(scope="module")
+def client():
+    """A Dask LocalCluster of 2 single-threaded worker processes, and its client."""
+    distributed = pytest.importorskip("dask.distributed")
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0")
+    with distributed.Client(cluster) as client:
+        yield client
+    cluster.close()

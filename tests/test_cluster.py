@@ -21,20 +21,12 @@ from molinv.cluster.chunks import finished_chunks
 from molinv.recipes import EnergyModel, make_descriptor, make_regressor
 from molinv.screening.screen import screen_file
 
-distributed = pytest.importorskip("dask.distributed")
+pytest.importorskip("dask.distributed")
 
 N_CANDIDATES, CHUNK = 3000, 60
 N_CHUNKS = N_CANDIDATES // CHUNK
 # What the command line passes, so that a screen started there can be resumed here.
 CLI_READ_OPTIONS = {"file_format": None, "length": "Angstrom", "energy": "eV", "smiles_column": None, "name_column": None}
-
-
-@pytest.fixture(scope="module")
-def client():
-    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0")
-    with distributed.Client(cluster) as client:
-        yield client
-    cluster.close()
 
 
 @pytest.fixture(scope="module")

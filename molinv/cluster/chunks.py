@@ -18,6 +18,7 @@ each worker once, not once per chunk.
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import socket
@@ -47,6 +48,21 @@ class ChunkReport:
     seconds: float
     worker: str
     cpu_seconds: float = float("nan")
+
+
+def folder_beside(path) -> Path:
+    """The chunk folder of an output file: ``<path>.chunks`` next to it."""
+    path = Path(path)
+    return path.with_name(path.name + ".chunks")
+
+
+def file_fingerprint(path) -> str:
+    """SHA-256 of a file's bytes (first 16 hex digits): chunks of one input are never reused for another."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()[:16]
 
 
 def claim_folder(folder, settings: dict, record_name: str = "settings.json") -> Path:
@@ -145,22 +161,28 @@ class LocalProcesses(InProcess):
 
     joblib's default backend pickles the shared value with each task, but
     keeps its large numpy arrays in shared memory (memory-mapped) after the first.
+
+    ``inner_threads`` caps the threads of OpenMP and BLAS inside each worker (joblib's
+    loky backend sets them when it starts the worker); None leaves joblib's default.
     """
 
-    def __init__(self, n_jobs: int = -1):
+    def __init__(self, n_jobs: int = -1, inner_threads: int | None = None):
         self.n_jobs = n_jobs
+        self.inner_threads = inner_threads
 
     def map_unordered(self, function: Callable, calls: Iterable[tuple]) -> Iterator:
         from joblib import Parallel, delayed
 
+        options = {} if self.inner_threads is None else {"backend": "loky", "inner_max_num_threads": self.inner_threads}
         # pre_dispatch bounds the chunks built ahead of the workers, so memory stays flat.
-        runner = Parallel(n_jobs=self.n_jobs, return_as="generator_unordered", pre_dispatch="2*n_jobs")
+        runner = Parallel(n_jobs=self.n_jobs, return_as="generator_unordered", pre_dispatch="2*n_jobs", **options)
         yield from runner(delayed(function)(*arguments) for arguments in calls)
 
 
 def run_chunks(task: Callable, chunks: Iterable[tuple[int, Callable[[], object]]], folder, *, shared=None,
                executor=None, total: int | None = None, progress: bool | None = None,
-               description: str = "chunks") -> list[ChunkReport]:
+               description: str = "chunks", on_finished: Callable[[ChunkReport], None] | None = None
+               ) -> list[ChunkReport]:
     """Run ``task(chunk, shared)`` on every unfinished chunk and write each result as it finishes.
 
     Parameters
@@ -180,6 +202,9 @@ def run_chunks(task: Callable, chunks: Iterable[tuple[int, Callable[[], object]]
         Default: this process.
     total : int, optional
         Items expected over all chunks, for the progress bar.
+    on_finished : callable, optional
+        Called here with each chunk's report as soon as its file is written (for
+        example to move its rows into a file that grows as the run goes).
 
     Returns the reports of the chunks computed by this call (finished ones are skipped).
     """
@@ -199,6 +224,8 @@ def run_chunks(task: Callable, chunks: Iterable[tuple[int, Callable[[], object]]
     with tqdm(total=total, desc=description, unit="mol", disable=None if progress is None else not progress) as bar:
         for report in executor.map_unordered(compute_and_write, calls()):
             reports.append(report)
+            if on_finished is not None:
+                on_finished(report)
             bar.update(report.items)
     return reports
 

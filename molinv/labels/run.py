@@ -4,8 +4,10 @@ The unit of work is :func:`label_chunk` (a list of ``ase.Atoms`` in, one row per
 molecule out). It limits every numerical library to one thread itself, so the same
 chunks can run in joblib workers here or on a cluster's workers.
 
-:func:`label_molecules` appends each finished chunk's rows to a CSV labels file
-and skips the names already in it, so a restarted run computes nothing twice.
+:func:`label_molecules` runs the chunks through :func:`molinv.cluster.chunks.run_chunks`
+(this process, local processes or a Dask cluster), appends each finished chunk's rows
+to a CSV labels file and skips the names already in it, so a restarted run computes
+nothing twice.
 Columns (our layout): name, formula, method, status ('ok' or 'failed'),
 energy_Hartree, energy_eV, atomization_energy_eV, seconds, reason.
 """
@@ -16,7 +18,9 @@ import csv
 import io
 import os
 import time
-from dataclasses import dataclass
+from contextlib import suppress
+from dataclasses import dataclass, replace
+from functools import partial
 from pathlib import Path
 from typing import Sequence
 
@@ -24,8 +28,9 @@ import numpy as np
 import pandas as pd
 from ase import Atoms
 from threadpoolctl import threadpool_limits
-from tqdm.auto import tqdm
 
+from molinv.cluster.chunks import InProcess, LocalProcesses, chunked, folder_beside, part_path, run_chunks
+from molinv.molecules.packed import MoleculeChunk, pack
 from molinv.molecules.units import ENERGY_UNITS
 
 from .methods import LabelError, LabelFailure, LabelMethod, atomization_energy_ev, total_energy_hartree
@@ -123,50 +128,90 @@ class LabelSummary:
 
 
 def label_molecules(molecules: Sequence[Atoms], method: LabelMethod, path, *, n_jobs: int = 1,
-                    chunk_size: int | None = None, retry_failed: bool = False, progress: bool | None = None
-                    ) -> LabelSummary:
+                    chunk_size: int | None = None, retry_failed: bool = False, progress: bool | None = None,
+                    executor=None) -> LabelSummary:
     """Compute every molecule not yet in the labels file ``path`` and append its row as its chunk finishes.
 
-    ``n_jobs`` processes run with one thread each. ``chunk_size`` defaults to 1 for
-    PySCF (each result written the moment it exists) and 16 for GFN2-xTB (about
-    10 ms each, where per-task overhead would dominate). ``retry_failed`` recomputes
-    the molecules whose earlier row failed (their old rows stay, marked by time order).
+    ``n_jobs`` processes run with one thread each; ``executor`` (for example a
+    :class:`~molinv.cluster.dask_cluster.DaskCluster`) runs the chunks elsewhere instead.
+    Either way each chunk's rows are first written to ``<path>.chunks/run-<started>/part-NNNNNN.csv``
+    where the chunk ran, then moved into ``path``; rows of chunks that finished after an
+    earlier run stopped are moved in at the start, not recomputed. ``chunk_size``
+    defaults to 1 for PySCF (each result written the moment it exists) and 16 for
+    GFN2-xTB (about 10 ms each, where per-task overhead would dominate).
+    ``retry_failed`` recomputes the molecules whose earlier row failed (their old rows
+    stay, marked by time order).
     """
-    from joblib import Parallel, delayed
-
     if n_jobs < 1:
         raise LabelError("n_jobs must be at least 1")
     path = Path(path)
     molecules = list(molecules)
     names = molecule_names(molecules)
     finished = _finished_rows(path, method)
-    done_rows = finished[finished["status"] == "ok"] if retry_failed else finished
-    done = set(done_rows["name"])
+    path.parent.mkdir(parents=True, exist_ok=True)
+    if not path.exists() or path.stat().st_size == 0:
+        _append(path, [], header=True)
+    folder = folder_beside(path)
+    for part in sorted(folder.glob("run-*/part-*.csv")):
+        _move_rows(part, path, method, _done_names(finished, retry_failed))
+    done = _done_names(_finished_rows(path, method), retry_failed)
+    # Each run numbers its chunks afresh, so each gets a folder of its own: a chunk of a stopped
+    # run that a worker finishes late must not take the place of this run's chunk of that number.
+    run_folder = folder / f"run-{time.strftime('%Y%m%d-%H%M%S')}-{os.urandom(3).hex()}"
     todo = [i for i, name in enumerate(names) if name not in done]
     size = chunk_size or (16 if method.kind == "xtb" else 1)
-    chunks = [todo[start:start + size] for start in range(0, len(todo), size)]
-    path.parent.mkdir(parents=True, exist_ok=True)
-    new_file = not path.exists() or path.stat().st_size == 0
-    computed = failed = 0
+    chunks = ((number, partial(_named_chunk, [molecules[i] for i in group], [names[i] for i in group]))
+              for number, group in chunked(todo, size))
+    failed = 0
+
+    def move(report):
+        nonlocal failed
+        rows = _move_rows(part_path(run_folder, report.number, ".csv"), path, method, done)
+        failed += int((rows["status"] == "failed").sum())
+
+    if executor is None:
+        executor = LocalProcesses(n_jobs, inner_threads=1) if n_jobs > 1 else InProcess()
+    reports = run_chunks(label_packed, chunks, run_folder, shared=method, executor=executor, total=len(todo),
+                         progress=progress, description=f"labels {method.name}", on_finished=move)
+    for empty in [*folder.glob("run-*"), folder]:  # their rows are in the labels file now
+        with suppress(OSError):
+            empty.rmdir()
+    return LabelSummary(path, len(names) - len(todo), sum(report.items for report in reports), failed)
+
+
+def label_packed(chunk: MoleculeChunk, method: LabelMethod) -> pd.DataFrame:
+    """Rows of one packed chunk of named molecules: a :func:`molinv.cluster.chunks.run_chunks` task."""
+    return pd.DataFrame(label_chunk(chunk.unpack(), method), columns=COLUMNS)
+
+
+def _named_chunk(molecules: list[Atoms], names: list[str]) -> MoleculeChunk:
+    # Names travel explicitly: an unnamed molecule's name comes from its place in the whole input.
+    return replace(pack(molecules), names=np.array(names, dtype=str), named=np.ones(len(names), dtype=bool))
+
+
+def _done_names(finished: pd.DataFrame, retry_failed: bool) -> set[str]:
+    return set((finished[finished["status"] == "ok"] if retry_failed else finished)["name"])
+
+
+def _move_rows(part: Path, path: Path, method: LabelMethod, done: set[str]) -> pd.DataFrame:
+    """Append a chunk file's rows to the labels file, except names in ``done``, then delete the chunk file.
+
+    A run stopped between the two steps leaves rows that are in both; the next run skips them
+    (with ``retry_failed``, a failed row may then appear twice; the later one counts).
+    """
+    rows = _finished_rows(part, method)
+    rows = rows[~rows["name"].isin(done)]
+    _append(path, rows.to_dict("records"))
+    part.unlink()
+    return rows
+
+
+def _append(path: Path, rows: list[dict], header: bool = False) -> None:
     with open(path, "a", newline="") as handle:
         writer = csv.DictWriter(handle, fieldnames=COLUMNS)
-        if new_file:
+        if header:
             writer.writeheader()
-            handle.flush()
-        tasks = (delayed(label_chunk)([molecules[i] for i in chunk], method, [names[i] for i in chunk])
-                 for chunk in chunks)
-        options = {"inner_max_num_threads": 1} if n_jobs > 1 else {}
-        results = Parallel(n_jobs=n_jobs, backend="loky", return_as="generator_unordered", **options)(tasks)
-        with tqdm(total=len(todo), desc=f"labels {method.name}", unit="mol",
-                  disable=None if progress is None else not progress) as bar:
-            for rows in results:
-                for row in rows:
-                    writer.writerow(row)
-                    failed += row["status"] == "failed"
-                handle.flush()
-                computed += len(rows)
-                bar.update(len(rows))
-    return LabelSummary(path, len(names) - len(todo), computed, failed)
+        writer.writerows(rows)
 
 
 def read_labels(path, method: LabelMethod | None = None) -> pd.DataFrame:

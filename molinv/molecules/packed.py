@@ -13,13 +13,14 @@ from __future__ import annotations
 import json
 from dataclasses import dataclass
 from functools import partial
+from pathlib import Path
 from typing import Iterable, Sequence
 
 import numpy as np
 from ase import Atoms
 
 from .checks import Rejected
-from .reading import PendingRecord, SmilesBuilder, UnitsDeclared
+from .reading import PendingRecord, ReadResult, SmilesBuilder, UnitsDeclared, iter_records
 
 BUILT, TO_EMBED, REJECTED = 0, 1, 2
 #: ``info`` keys kept in their own arrays; other scalar properties travel as JSON text.
@@ -52,6 +53,15 @@ class MoleculeChunk:
     def nbytes(self) -> int:
         return sum(getattr(self, name).nbytes for name in self.__dataclass_fields__
                    if isinstance(getattr(self, name), np.ndarray))
+
+    def arrays(self) -> dict[str, np.ndarray]:
+        """Every field as a numpy array (``np.savez`` writes them, no pickle)."""
+        return {name: np.asarray(getattr(self, name)) for name in self.__dataclass_fields__}
+
+    @classmethod
+    def from_arrays(cls, arrays: dict[str, np.ndarray]) -> MoleculeChunk:
+        fields = dict(arrays)
+        return cls(**{**fields, "units": str(fields["units"]), "seed": int(fields["seed"])})
 
     def unpack(self) -> list[Atoms | Rejected]:
         """The records as ``ase.Atoms`` (SMILES embedded here) or :class:`Rejected`, in order."""
@@ -155,3 +165,34 @@ def packed_chunks(items: Iterable, chunk_size: int):
     from molinv.cluster.chunks import chunked
 
     return ((number, partial(pack, group)) for number, group in chunked(items, chunk_size))
+
+
+def build_chunk(chunk: MoleculeChunk, shared=None) -> dict[str, np.ndarray]:
+    """The records of ``chunk`` built where this runs (SMILES embedded) and packed again:
+    a :func:`molinv.cluster.chunks.run_chunks` task."""
+    return pack(chunk.unpack()).arrays()
+
+
+def read_in_chunks(path, folder, *, chunk_size: int = 1000, executor=None, progress: bool | None = None,
+                   **read_options) -> ReadResult:
+    """What :func:`~molinv.molecules.reading.read_molecules` returns, with the records built
+    (SMILES embedded) chunk by chunk by ``executor`` (this process, local processes or a
+    Dask cluster; see :mod:`molinv.cluster`) rather than here.
+
+    Each chunk's built molecules and rejections are kept in ``folder`` (``.npz``) as it
+    finishes, so a rerun on the same file rebuilds only the missing chunks.
+    ``read_options`` are those of :func:`~molinv.molecules.reading.iter_records`.
+    """
+    from molinv.cluster.chunks import claim_folder, file_fingerprint, read_arrays, run_chunks
+
+    path = Path(path)
+    records = iter_records(path, progress=False, **read_options)
+    claim_folder(folder, {"input": str(path.resolve()), "input_sha256": file_fingerprint(path),
+                          "chunk_size": chunk_size, "read_options": {k: str(v) for k, v in read_options.items()}})
+    run_chunks(build_chunk, packed_chunks(records, chunk_size), folder, executor=executor, progress=progress,
+               description=f"read {path.name}")
+    result = ReadResult(source=str(path))
+    for arrays in read_arrays(folder):
+        for item in MoleculeChunk.from_arrays(arrays).unpack():
+            result.add(item)
+    return result

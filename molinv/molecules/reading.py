@@ -54,6 +54,9 @@ class ReadResult:
     molecules: list[Atoms] = field(default_factory=list)
     rejected: list[Rejected] = field(default_factory=list)
 
+    def add(self, item: Atoms | Rejected) -> None:
+        (self.rejected if isinstance(item, Rejected) else self.molecules).append(item)
+
     @property
     def n_records(self) -> int:
         return len(self.molecules) + len(self.rejected)
@@ -92,7 +95,7 @@ def read_molecules(path, **options) -> ReadResult:
     """
     result = ReadResult(source=str(path))
     for item in iter_molecules(path, **options):
-        (result.rejected if isinstance(item, Rejected) else result.molecules).append(item)
+        result.add(item)
     return result
 
 
@@ -184,7 +187,8 @@ def iter_records(path, *, file_format: str | None = None, length: str = "Angstro
                  smiles_column: str | None = None, name_column: str | None = None, seed: int = EMBED_SEED,
                  progress: bool | None = None, skip_records: int = 0) -> Iterator[PendingRecord]:
     """Each record of a file in order, located but not built (see :class:`PendingRecord`);
-    parameters as for :func:`iter_molecules`."""
+    parameters as for :func:`iter_molecules`. A missing file or unknown format is refused
+    by the call itself, before anything is read."""
     path = Path(path)
     if not path.is_file():
         raise InputError(f"{path}: no such file")
@@ -200,6 +204,10 @@ def iter_records(path, *, file_format: str | None = None, length: str = "Angstro
         records = _csv_records(path, smiles_column, name_column, seed)
     else:
         raise InputError(f"{path}: unknown format {fmt!r}; choose xyz, sdf, smiles or csv")
+    return _pending(records, path, units, progress, skip_records)
+
+
+def _pending(records, path: Path, units: UnitsDeclared, progress, skip_records: int) -> Iterator[PendingRecord]:
     for number, line, name, build in tqdm(records, desc=path.name, unit="rec", disable=_disabled(progress)):
         if number > skip_records:
             yield PendingRecord(str(path), number, line, name, build, units)

@@ -13,14 +13,13 @@ the chunk files. Memory holds a few chunks at a time.
 
 from __future__ import annotations
 
-import hashlib
 from dataclasses import dataclass, field
 from functools import partial
 from pathlib import Path
 
 import pandas as pd
 
-from molinv.cluster.chunks import ChunkError, ChunkReport, claim_folder, read_tables, run_chunks
+from molinv.cluster.chunks import ChunkError, ChunkReport, claim_folder, file_fingerprint, read_tables, run_chunks
 from molinv.descriptors.store import molecules_fingerprint
 from molinv.molecules.checks import Rejected
 from molinv.molecules.packed import MoleculeChunk, packed_chunks
@@ -50,14 +49,6 @@ class ScreenSummary:
         lines += ["  " + line for line in self.top.to_string(index=False, float_format=lambda v: f"{v:.2f}").splitlines()]
         lines.append(f"Caution: {CAUTION}")
         return "\n".join(lines)
-
-
-def _file_fingerprint(path: Path) -> str:
-    digest = hashlib.sha256()
-    with open(path, "rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()[:16]
 
 
 def predict_chunk(chunk: MoleculeChunk, model, *, unit: str, target: str) -> pd.DataFrame:
@@ -98,8 +89,8 @@ def screen_file(model, path, out, *, model_fingerprint: str, target: str = "ener
     read_options = dict(read_options or {})
     if isinstance(path, (str, Path)):
         path = Path(path)
-        label, fingerprint = str(path.resolve()), _file_fingerprint(path)
         items = iter_records(path, progress=False, **read_options)
+        label, fingerprint = str(path.resolve()), file_fingerprint(path)
     else:
         items = list(path)
         label, fingerprint = source_label or "molecules", molecules_fingerprint(items)
