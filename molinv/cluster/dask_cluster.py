@@ -31,10 +31,10 @@ from typing import Callable, Iterable, Iterator
 
 #: Dask's setting that makes workers hand freed memory back to the system. Any such glibc
 #: setting also freezes glibc's mmap threshold at 128 KiB (mallopt(3)), so every numpy
-#: temporary above that size is mapped, page-faulted and unmapped anew: measured here (20,000
-#: QM9 molecules, 'atoms' + linear, 2 workers) the workers spent a fifth of their CPU time in
-#: the kernel and took 1.9x the local path's wall time. Our chunks are bounded, so the memory
-#: glibc keeps for reuse is too. None unsets it (Dask's rule for this setting).
+#: temporary above that size is mapped, page-faulted and unmapped anew: describing 500 QM9
+#: molecules with 'atoms' took 10x the page faults and about 1.6x the CPU time with it
+#: (benchmarks/bench_worker_malloc.py). Our chunks are bounded, so the memory glibc keeps
+#: for reuse is too. None unsets it (Dask's rule for this setting).
 MALLOC_TRIM_SETTING = "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_"
 JOBQUEUE_KINDS = {"slurm": "SLURMCluster", "pbs": "PBSCluster", "sge": "SGECluster", "lsf": "LSFCluster",
                   "htcondor": "HTCondorCluster", "moab": "MoabCluster", "oar": "OARCluster"}
