@@ -133,6 +133,9 @@ def open_cluster(spec: str, n_workers: int | None = None) -> DaskCluster:
         import dask
 
         # Each nanny reads its workers' environment once, when created here (restarts reuse it).
+        # Nannies also copy that environment into this process before spawning, so a cluster
+        # started earlier in this process leaves the variable here for new workers to inherit.
+        os.environ.pop(MALLOC_TRIM_SETTING.rsplit(".", 1)[1], None)
         with dask.config.set({MALLOC_TRIM_SETTING: None}):
             cluster = distributed.LocalCluster(n_workers=n_workers or os.cpu_count(), threads_per_worker=1,
                                                processes=True, dashboard_address=":0")
