@@ -38,7 +38,7 @@ def main() -> None:
     train = qm9.molecules(rng.choice(np.flatnonzero(~is_isomer), args.train, replace=False))
     isomers = qm9.molecules(rng.choice(np.flatnonzero(is_isomer), args.isomers, replace=False))
     descriptor = make_descriptor(args.descriptor)
-    model = EnergyModel(descriptor, make_regressor(args.model, descriptor.per_atom))
+    model = EnergyModel(descriptor, make_regressor(args.model, descriptor.per_atom, descriptor=args.descriptor))
     started = time.perf_counter()
     model.fit(train, [m.info["atomization_energy"] for m in train])
     fitted = time.perf_counter() - started
