@@ -124,3 +124,33 @@ def test_search_size_covering_the_training_set_is_the_full_search():
     np.testing.assert_array_equal(covering.predict(X[120:]), full.predict(X[120:]))
     # A real subset searches other rows: its validation errors differ.
     assert not np.allclose(subset.cv_mae_, full.cv_mae_)
+
+
+def test_grid_point_whose_final_factorisation_fails_gives_way_to_the_next_best(monkeypatch):
+    import scipy.linalg
+
+    from molinv.models import kernel_ridge
+
+    X, y = synthetic(seed=8)
+    settings = dict(widths=WIDTHS, regularizations=REGULARIZATIONS, baseline=None, predictive_std=False)
+    reference = KernelRidgeCV("laplacian", **settings).fit(X[:120], y[:120])
+    order = np.argsort(reference.cv_mae_.T, axis=None, kind="stable")
+    second_reg, second_width = np.unravel_index(order[1], reference.cv_mae_.T.shape)
+    cholesky = scipy.linalg.cholesky
+    calls = []
+
+    def failing_once(*args, **kwargs):
+        # The search factorises with cho_factor; the final fit's first attempt is made to fail.
+        calls.append(1)
+        if len(calls) == 1:
+            raise np.linalg.LinAlgError("not positive definite")
+        return cholesky(*args, **kwargs)
+
+    monkeypatch.setattr(kernel_ridge.scipy.linalg, "cholesky", failing_once)
+    ours = KernelRidgeCV("laplacian", **settings).fit(X[:120], y[:120])
+    assert ours.refused_ == [[reference.width_, reference.regularization_]]
+    assert (ours.width_, ours.regularization_) == (WIDTHS[second_width], REGULARIZATIONS[second_reg])
+    monkeypatch.undo()
+    expected = KernelRidgeModel("laplacian", width=ours.width_, regularization=ours.regularization_, baseline=None,
+                                predictive_std=False).fit(X[:120], y[:120])
+    np.testing.assert_allclose(ours.predict(X[120:]), expected.predict(X[120:]), rtol=0, atol=1e-10)

@@ -92,6 +92,9 @@ def chosen_hyperparameters(model) -> dict:
         if grid is not None and len(grid) > 1 and any(np.isclose(chosen[key], unit * edge, rtol=1e-9)
                                                      for edge in (min(grid), max(grid))):
             chosen[f"{key}_at_grid_edge"] = True
+    if getattr(model, "refused_", None):
+        # Better grid points whose final factorisation failed (see KernelRidgeCV).
+        chosen["refused"] = len(model.refused_)
     return chosen
 
 

@@ -76,6 +76,11 @@ def choose_solver(solver: str, n_regularizations: int, eig_to_cholesky_cost: flo
     return "eigen" if n_regularizations > eig_to_cholesky_cost else "cholesky"
 
 
+class NotPositiveDefinite(ModelInputError):
+    """The training kernel plus regularisation cannot be factorised (too small a regularisation
+    for the width: very wide Gaussian kernels are numerically rank-deficient)."""
+
+
 def check_regularizations(values) -> np.ndarray:
     values = np.atleast_1d(np.asarray(values, dtype=float))
     if values.ndim != 1 or len(values) == 0 or not np.all(np.isfinite(values)) or np.any(values <= 0):
@@ -203,7 +208,7 @@ class _KernelRidgeBase(BaselineMixin, RegressorMixin, BaseEstimator):
         try:
             lower = scipy.linalg.cholesky(kernel.T, lower=True, overwrite_a=True, check_finite=False)
         except np.linalg.LinAlgError as error:
-            raise ModelInputError(
+            raise NotPositiveDefinite(
                 f"K + lambda I is not positive definite at width {width}, regularisation {regularization}; "
                 "increase the regularisation"
             ) from error
@@ -308,7 +313,8 @@ class _GridSearch:
     Sets ``cv_mae_`` (n_widths, n_regularizations: mean validation MAE over folds),
     ``solver_``, ``width_`` and ``regularization_``; with more rows than ``search_size`` the
     search (and ``width_unit_value_``) uses a random subset of that many, ``search_rows_``
-    (see the module docstring). Ties go to the first grid point in scikit-learn's ``ParameterGrid`` order
+    (see the module docstring). ``refused_`` lists the better grid points (width,
+    regularisation) whose final factorisation failed, if any. Ties go to the first grid point in scikit-learn's ``ParameterGrid`` order
     (regularisation outer, width inner).
     """
 
@@ -351,13 +357,23 @@ class _GridSearch:
         y = targets(y, len(X))
         rows = self.search_rows_ = self._search_rows(len(y))
         searched_all = len(rows) == len(y)
-        width, regularization, kernel = self._search(X if searched_all else X[rows], y[rows])
-        # The search's kernel at the chosen width is the final one only when it saw every row.
-        return self._fit_fixed(X, y, width, regularization, kernel if searched_all else None)
+        widths, regularizations, shared = self._search(X if searched_all else X[rows], y[rows])
+        # Best grid point first (ties: ParameterGrid order). A point whose final factorisation fails
+        # (possible when the search saw fewer rows, or fell back to least squares) gives way to the next.
+        order = np.argsort(self.cv_mae_.T, axis=None, kind="stable")
+        self.refused_ = []
+        for i_reg, i_width in zip(*np.unravel_index(order, self.cv_mae_.T.shape)):
+            # The search's kernel at this width is the final one only when it saw every row.
+            kernel = shared.matrix(i_width) if shared is not None and searched_all else None
+            try:
+                return self._fit_fixed(X, y, widths[i_width], regularizations[i_reg], kernel)
+            except NotPositiveDefinite:
+                self.refused_.append([float(widths[i_width]), float(regularizations[i_reg])])
+        raise NotPositiveDefinite("K + lambda I is not positive definite at any grid point; add larger regularisations")
 
     def _search(self, X, y):
-        """Cross-validate the grid on ``X``; returns the chosen width, regularisation and the training
-        kernel at that width when it is at hand (else None)."""
+        """Cross-validate the grid on ``X`` (sets ``cv_mae_``); returns the widths, the regularisations
+        and the kernel table of ``X`` when one was shared by all folds (else None)."""
         regularizations = check_regularizations(self.regularizations)
         self.solver_ = choose_solver(self.solver, len(regularizations))
         folds = self._folds(len(y))
@@ -378,8 +394,7 @@ class _GridSearch:
             y_train, y_val = residuals[i_fold]
             errors[i_fold, i_width] = validation_errors(kernel_train, kernel_val, y_train, y_val, regularizations, self.solver_)
         self.cv_mae_ = errors.mean(axis=0)
-        i_reg, i_width = np.unravel_index(np.argmin(self.cv_mae_.T), self.cv_mae_.T.shape)
-        return widths[i_width], regularizations[i_reg], None if shared is None else shared.matrix(i_width)
+        return widths, regularizations, shared
 
 
 _STD_DOC = """
