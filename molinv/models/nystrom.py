@@ -55,6 +55,7 @@ from molinv.models.inputs import (
     training_fingerprint,
 )
 from molinv.models.kernel_ridge import (
+    NotPositiveDefinite,
     check_interval_level,
     check_regularizations,
     fit_scaling,
@@ -275,7 +276,11 @@ class NystromRidge(BaselineMixin, RegressorMixin, BaseEstimator):
             if self.predictive_std:
                 kept.append(features[calibration[chunk]])
         gram[np.diag_indices(rank)] += self.regularization_
-        lower = scipy.linalg.cholesky(gram, lower=True)
+        try:
+            lower = scipy.linalg.cholesky(gram, lower=True)
+        except np.linalg.LinAlgError as error:
+            raise NotPositiveDefinite(f"Phi^T Phi + lambda I is not positive definite at width {self.width_}, "
+                                      f"regularisation {self.regularization_}; increase the regularisation") from error
         self.coef_ = scipy.linalg.cho_solve((lower, True), moment)
         forget_uncertainty(self)
         if self.predictive_std:
@@ -339,8 +344,9 @@ class NystromRidgeCV(NystromRidge):
         None: all of them.
     Other parameters as in :class:`NystromRidge`.
 
-    Sets ``cv_mae_`` (n_widths, n_regularizations), ``search_rows_``, ``width_unit_value_``, ``width_``
-    and ``regularization_`` besides the fitted state of :class:`NystromRidge`.
+    Sets ``cv_mae_`` (n_widths, n_regularizations; inf where a fold could not be factorised),
+    ``search_rows_``, ``width_unit_value_``, ``width_``, ``regularization_`` and ``refused_`` (better
+    grid points whose final factorisation failed) besides the fitted state of :class:`NystromRidge`.
     """
 
     def __init__(self, kernel="gaussian", widths=(0.5, 1.0, 2.0, 4.0), regularizations=(1e-8, 1e-6, 1e-4, 1e-2),
@@ -410,9 +416,23 @@ class NystromRidgeCV(NystromRidge):
                 for i_reg, regularization in enumerate(regularizations):
                     system = fold_gram.copy()
                     system[np.diag_indices_from(system)] += regularization
-                    coef = scipy.linalg.cho_solve(scipy.linalg.cho_factor(system, lower=True), moment)
+                    try:
+                        coef = scipy.linalg.cho_solve(scipy.linalg.cho_factor(system, lower=True), moment)
+                    except np.linalg.LinAlgError:
+                        # Too small a regularisation for this width: not a candidate.
+                        errors[i_width, i_reg] = np.inf
+                        continue
                     errors[i_width, i_reg] += np.mean(np.abs(held_out @ coef - y_validation)) / len(folds)
             del features
         self.cv_mae_ = errors
-        i_width, i_reg = np.unravel_index(np.argmin(errors), errors.shape)
-        return self._fit_fixed(X, y, widths[i_width], regularizations[i_reg], reserved)
+        # Best first (ties: the first width, then the first regularisation); a point whose final
+        # factorisation fails gives way to the next, as in KernelRidgeCV.
+        self.refused_ = []
+        for i_width, i_reg in zip(*np.unravel_index(np.argsort(errors, axis=None, kind="stable"), errors.shape)):
+            if not np.isfinite(errors[i_width, i_reg]):
+                break
+            try:
+                return self._fit_fixed(X, y, widths[i_width], regularizations[i_reg], reserved)
+            except NotPositiveDefinite:
+                self.refused_.append([float(widths[i_width]), float(regularizations[i_reg])])
+        raise NotPositiveDefinite("no grid point gives a positive definite system; add larger regularisations")
