@@ -63,10 +63,11 @@ DEFAULT_GLOBAL_KERNEL = ("laplacian", False)
 #: Cross-validation grid of the 'kernel' and 'large' models on global descriptors, widths in units
 #: of the median distance between training rows. Wide because the best widths differ by 10^3
 #: between descriptors (0.5 median distances for standardised Coulomb eigenvalues, 512 for the
-#: Gaussian on 'density' at 1,000 molecules); steps of 4 in width cost at most 0.5% of the best
-#: cross-validated error against steps of 2 in that comparison.
+#: Gaussian on 'density' at 1,000 molecules). In that comparison steps of 4 in width cost at most
+#: 0.5% of the best cross-validated error against steps of 2, and regularisations every second
+#: decade up to 2% against every decade; 1e-3 and 1e-1 (chosen for 'bonds' and 'coulomb') are added.
 GLOBAL_WIDTHS = (0.125, 0.5, 2.0, 8.0, 32.0, 128.0, 512.0, 2048.0)
-GLOBAL_REGULARIZATIONS = (1e-12, 1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0)
+GLOBAL_REGULARIZATIONS = (1e-12, 1e-10, 1e-8, 1e-6, 1e-4, 1e-3, 1e-2, 1e-1, 1.0)
 #: Above this many training molecules the exact model searches its grid on a random subset of
 #: this size and refits the choice on all (see molinv.models.kernel_ridge).
 KERNEL_SEARCH_SIZE = 4000
