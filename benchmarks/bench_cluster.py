@@ -56,7 +56,7 @@ def main() -> None:
     order = qm9.sample(args.train + args.n, seed=args.seed)
     train = qm9.molecules(order[: args.train])
     descriptor = make_descriptor(args.descriptor)
-    model = EnergyModel(descriptor, make_regressor(args.model, descriptor.per_atom))
+    model = EnergyModel(descriptor, make_regressor(args.model, descriptor.per_atom, descriptor=args.descriptor))
     model.fit(train, [m.info["atomization_energy"] for m in train])
     work = Path(tempfile.mkdtemp(prefix="molinv-bench-cluster-"))
     candidates = work / "candidates.xyz"

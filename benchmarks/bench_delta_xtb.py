@@ -59,7 +59,7 @@ def main() -> int:
 
     descriptor = make_descriptor(args.descriptor, progress=True).fit(molecules)
     inputs = model_inputs(descriptor, molecules)
-    regressor = make_regressor("kernel", descriptor.per_atom, progress=False)
+    regressor = make_regressor("kernel", descriptor.per_atom, progress=False, descriptor=args.descriptor)
     runs = {}
     with threadpool_limits(limits=1, user_api="blas"):
         for name, y in (("direct", target), ("delta (xTB + correction)", target - cheap)):

@@ -44,7 +44,7 @@ def main() -> None:
     isomers = qm9.molecules(rng.choice(np.flatnonzero(is_isomer), args.isomers, replace=False))
     overrides = {"n_components": args.atom_components} if args.atom_components is not None else {}
     descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, **overrides)
-    model = EnergyModel(descriptor, make_regressor(args.model, descriptor.per_atom))
+    model = EnergyModel(descriptor, make_regressor(args.model, descriptor.per_atom, descriptor=args.descriptor))
     started = time.perf_counter()
     model.fit(train, [m.info["atomization_energy"] for m in train])
     fitted = time.perf_counter() - started

@@ -77,8 +77,8 @@ def main() -> int:
             for strategy, factor in variants:
                 folder = args.out / "runs" / f"{strategy}-{factor:g}-seed{seed}"
                 hidden = HiddenLabels(energies)
-                loop = PickLoop(folder, names, inputs, vectors, make_regressor("kernel", descriptor.per_atom),
-                                hidden, test, sizes=args.sizes, strategy=strategy, seed=seed,
+                regressor = make_regressor("kernel", descriptor.per_atom, descriptor=args.descriptor)
+                loop = PickLoop(folder, names, inputs, vectors, regressor, hidden, test, sizes=args.sizes, strategy=strategy, seed=seed,
                                 shortlist_factor=factor)
                 tic = time.perf_counter()
                 table = loop.run(progress=True)

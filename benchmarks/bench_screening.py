@@ -113,8 +113,8 @@ def main() -> None:
     train = qm9.molecules(order[: args.train])
     started = time.perf_counter()
     descriptor = make_descriptor(args.descriptor)
-    model = EnergyModel(descriptor, make_regressor(args.model, descriptor.per_atom)).fit(
-        train, [m.info["atomization_energy"] for m in train])
+    regressor = make_regressor(args.model, descriptor.per_atom, descriptor=args.descriptor)
+    model = EnergyModel(descriptor, regressor).fit(train, [m.info["atomization_energy"] for m in train])
     print(f"fit {args.descriptor} + {args.model} on {args.train}: {time.perf_counter() - started:.1f} s")
 
     screened = order[args.train : args.train + args.screen]

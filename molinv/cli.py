@@ -178,7 +178,8 @@ def energy_model(descriptor_name: str, model_name: str, args):
 
     overrides = descriptor_overrides(descriptor_name, args)
     descriptor = make_descriptor(descriptor_name, n_jobs=args.jobs, progress=True, **overrides)
-    return EnergyModel(descriptor, make_regressor(model_name, descriptor.per_atom, progress=True), feature_store(args))
+    regressor = make_regressor(model_name, descriptor.per_atom, progress=True, descriptor=descriptor_name)
+    return EnergyModel(descriptor, regressor, feature_store(args))
 
 
 def run_describe(args) -> int:
@@ -436,7 +437,7 @@ def run_pick_loop(args) -> int:
     descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, progress=True).fit(molecules)
     inputs = model_inputs(descriptor, molecules, feature_store(args))
     loop = PickLoop(args.out, molecule_names(molecules), inputs, molecule_vectors(inputs, descriptor.elements_),
-                    make_regressor(args.model, descriptor.per_atom), labeller, test, sizes=args.sizes,
+                    make_regressor(args.model, descriptor.per_atom, descriptor=args.descriptor), labeller, test, sizes=args.sizes,
                     strategy=args.strategy, seed=args.seed, shortlist_factor=args.shortlist)
     rounds = loop.run(progress=True)
     summary = summarize(rounds, unit=args.unit)
@@ -476,8 +477,8 @@ def run_demo(args) -> int:
     print(f"2/3 learning curves on atomization energy (from U0), test set of {args.test_size} molecules")
     for name in ("atoms", "coulomb"):
         descriptor = make_descriptor(name, progress=True).fit(molecules)
-        run.run(model_inputs(descriptor, molecules), make_regressor("kernel", descriptor.per_atom, progress=True),
-                f"{name} + kernel", progress=True)
+        regressor = make_regressor("kernel", descriptor.per_atom, progress=True, descriptor=name)
+        run.run(model_inputs(descriptor, molecules), regressor, f"{name} + kernel", progress=True)
     page = write_report(run, out, unit="kcal/mol", target=1.0, n_atoms=[len(a) for a in molecules],
                         settings={"data": f"QM9 sample of {args.molecules} (seed {args.seed})",
                                   "energy": "atomization energy from U0", "test molecules": args.test_size},

@@ -96,3 +96,61 @@ def test_solver_choice_follows_cost_ratio():
     assert choose_solver("auto", 6) == "cholesky"
     assert choose_solver("auto", 30) == "eigen"
     assert choose_solver("auto", 6, eig_to_cholesky_cost=3) == "eigen"
+
+
+@pytest.mark.parametrize("kind", ["gaussian", "laplacian"])
+def test_search_on_a_subset_chooses_as_grid_search_on_it_and_refits_on_all(kind):
+    X, y = synthetic(n=200, seed=5)
+    ours = KernelRidgeCV(kind, WIDTHS, REGULARIZATIONS, cv=5, random_state=0, baseline=None, predictive_std=False,
+                         search_size=100).fit(X[:160], y[:160])
+    rows = ours.search_rows_
+    assert len(np.unique(rows)) == 100 and rows.max() < 160
+    gamma, alpha, best_mae = grid_search(kind, X[rows], y[rows])
+    assert SKLEARN[kind][1](ours.width_) == pytest.approx(gamma, rel=1e-12)
+    assert ours.regularization_ == alpha
+    assert ours.cv_mae_.min() == pytest.approx(best_mae, rel=1e-7)
+    refit = KernelRidge(kernel=SKLEARN[kind][0], gamma=gamma, alpha=alpha).fit(X[:160], y[:160])
+    np.testing.assert_allclose(ours.predict(X[160:]), refit.predict(X[160:]), rtol=0, atol=1e-8)
+
+
+def test_search_size_covering_the_training_set_is_the_full_search():
+    X, y = synthetic(seed=6)
+    settings = dict(widths=WIDTHS, regularizations=REGULARIZATIONS, scale=True, baseline=None, predictive_std=False,
+                    width_unit="median")
+    full = KernelRidgeCV("gaussian", **settings).fit(X[:120], y[:120])
+    covering = KernelRidgeCV("gaussian", search_size=120, **settings).fit(X[:120], y[:120])
+    subset = KernelRidgeCV("gaussian", search_size=60, **settings).fit(X[:120], y[:120])
+    np.testing.assert_array_equal(covering.cv_mae_, full.cv_mae_)
+    np.testing.assert_array_equal(covering.predict(X[120:]), full.predict(X[120:]))
+    # A real subset searches other rows: its validation errors differ.
+    assert not np.allclose(subset.cv_mae_, full.cv_mae_)
+
+
+def test_grid_point_whose_final_factorisation_fails_gives_way_to_the_next_best(monkeypatch):
+    import scipy.linalg
+
+    from molinv.models import kernel_ridge
+
+    X, y = synthetic(seed=8)
+    settings = dict(widths=WIDTHS, regularizations=REGULARIZATIONS, baseline=None, predictive_std=False)
+    reference = KernelRidgeCV("laplacian", **settings).fit(X[:120], y[:120])
+    order = np.argsort(reference.cv_mae_.T, axis=None, kind="stable")
+    second_reg, second_width = np.unravel_index(order[1], reference.cv_mae_.T.shape)
+    cholesky = scipy.linalg.cholesky
+    calls = []
+
+    def failing_once(*args, **kwargs):
+        # The search factorises with cho_factor; the final fit's first attempt is made to fail.
+        calls.append(1)
+        if len(calls) == 1:
+            raise np.linalg.LinAlgError("not positive definite")
+        return cholesky(*args, **kwargs)
+
+    monkeypatch.setattr(kernel_ridge.scipy.linalg, "cholesky", failing_once)
+    ours = KernelRidgeCV("laplacian", **settings).fit(X[:120], y[:120])
+    assert ours.refused_ == [[reference.width_, reference.regularization_]]
+    assert (ours.width_, ours.regularization_) == (WIDTHS[second_width], REGULARIZATIONS[second_reg])
+    monkeypatch.undo()
+    expected = KernelRidgeModel("laplacian", width=ours.width_, regularization=ours.regularization_, baseline=None,
+                                predictive_std=False).fit(X[:120], y[:120])
+    np.testing.assert_allclose(ours.predict(X[120:]), expected.predict(X[120:]), rtol=0, atol=1e-10)

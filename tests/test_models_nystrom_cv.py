@@ -40,3 +40,55 @@ def test_few_landmarks_saves_and_reloads(tmp_path):
     loaded_mean, loaded_std = loaded.predict(X[250:], return_std=True)
     np.testing.assert_array_equal(mean, loaded_mean)
     np.testing.assert_array_equal(std, loaded_std)
+
+
+def test_search_on_a_subset_chooses_as_grid_search_on_it_and_refits_on_all():
+    X, y = synthetic(n=200, seed=7)
+    model = NystromRidgeCV("laplacian", widths=WIDTHS, regularizations=REGULARIZATIONS, cv=4, width_unit="absolute",
+                           n_landmarks=10_000, baseline=None, random_state=5, predictive_std=False,
+                           search_size=90).fit(X[:160], y[:160])
+    rows = model.search_rows_
+    assert len(np.unique(rows)) == 90 and rows.max() < 160
+    gamma = [1 / w for w in WIDTHS]
+    search = GridSearchCV(KernelRidge(kernel="laplacian"), {"alpha": list(REGULARIZATIONS), "gamma": gamma},
+                          cv=KFold(4, shuffle=True, random_state=5), scoring="neg_mean_absolute_error").fit(X[rows], y[rows])
+    reference = -search.cv_results_["mean_test_score"].reshape(len(REGULARIZATIONS), len(WIDTHS)).T
+    np.testing.assert_allclose(model.cv_mae_, reference, rtol=1e-5)
+    alpha, width = search.best_params_["alpha"], WIDTHS[gamma.index(search.best_params_["gamma"])]
+    assert (model.width_, model.regularization_) == pytest.approx((width, alpha))
+    refit = KernelRidge(kernel="laplacian", gamma=1 / width, alpha=alpha).fit(X[:160], y[:160])
+    np.testing.assert_allclose(model.predict(X[160:]), refit.predict(X[160:]), atol=1e-6)
+
+
+def test_failed_factorisations_are_skipped_in_the_search_and_the_refit(monkeypatch):
+    import scipy.linalg
+
+    from molinv.models import nystrom
+
+    X, y = synthetic(n=160, seed=9)
+    settings = dict(widths=WIDTHS, regularizations=REGULARIZATIONS, cv=4, width_unit="absolute", n_landmarks=60,
+                    baseline=None, random_state=5, predictive_std=False)
+    reference = NystromRidgeCV("gaussian", **settings).fit(X, y)
+    cho_factor, cholesky = scipy.linalg.cho_factor, scipy.linalg.cholesky
+    calls = {"search": 0, "refit": 0}
+
+    def search_fails_first(*args, **kwargs):
+        calls["search"] += 1
+        if calls["search"] == 1:  # first width, first regularisation, first fold
+            raise np.linalg.LinAlgError("not positive definite")
+        return cho_factor(*args, **kwargs)
+
+    def refit_fails_first(*args, **kwargs):
+        calls["refit"] += 1
+        if calls["refit"] == 1:
+            raise np.linalg.LinAlgError("not positive definite")
+        return cholesky(*args, **kwargs)
+
+    monkeypatch.setattr(nystrom.scipy.linalg, "cho_factor", search_fails_first)
+    monkeypatch.setattr(nystrom.scipy.linalg, "cholesky", refit_fails_first)
+    model = NystromRidgeCV("gaussian", **settings).fit(X, y)
+    assert np.isinf(model.cv_mae_[0, 0])
+    np.testing.assert_allclose(model.cv_mae_.ravel()[1:], reference.cv_mae_.ravel()[1:], rtol=1e-12)
+    widths, regs = np.unravel_index(np.argsort(model.cv_mae_, axis=None, kind="stable")[:2], model.cv_mae_.shape)
+    assert model.refused_ == [[WIDTHS[widths[0]], REGULARIZATIONS[regs[0]]]]
+    assert (model.width_, model.regularization_) == (WIDTHS[widths[1]], REGULARIZATIONS[regs[1]])

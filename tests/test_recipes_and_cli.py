@@ -98,3 +98,12 @@ def test_cli_atom_components_reach_the_model_file(tmp_path, qm9):
     model, metadata = EnergyModel.load(model_path)
     assert metadata["descriptor"]["params"]["n_components"] == 6
     assert model.descriptor_.basis_.shape[2] == 6
+
+
+def test_global_recipes_take_the_kernel_chosen_per_descriptor():
+    from molinv.recipes import DEFAULT_GLOBAL_KERNEL, GLOBAL_KERNEL_CHOICE
+
+    for name, choice in [*GLOBAL_KERNEL_CHOICE.items(), ("counts", DEFAULT_GLOBAL_KERNEL)]:
+        for model in ("kernel", "large"):
+            params = make_regressor(model, per_atom=False, descriptor=name).get_params()
+            assert (params["kernel"], params["scale"]) == choice, (name, model)

@@ -28,6 +28,11 @@ Cholesky factorisation per regularisation value or one eigendecomposition
 one matrix product. What remains is the factorisations themselves (74% of the time at
 1,500 molecules, more at larger sizes): an exact search cannot be faster than one
 factorisation per fold, width and value (benchmarks/bench_models.py measures that floor).
+
+Above ``search_size`` training rows the search runs on a random subset of that many and only
+the final fit uses them all (choosing hyperparameters on a subsample and refitting on the full
+set is common practice, no source): the search then costs the same at every size, and a fit
+at 20,000 rows is one factorisation instead of hundreds.
 """
 
 from __future__ import annotations
@@ -69,6 +74,11 @@ def choose_solver(solver: str, n_regularizations: int, eig_to_cholesky_cost: flo
     if solver != "auto":
         return solver
     return "eigen" if n_regularizations > eig_to_cholesky_cost else "cholesky"
+
+
+class NotPositiveDefinite(ModelInputError):
+    """The training kernel plus regularisation cannot be factorised (too small a regularisation
+    for the width: very wide Gaussian kernels are numerically rank-deficient)."""
 
 
 def check_regularizations(values) -> np.ndarray:
@@ -198,7 +208,7 @@ class _KernelRidgeBase(BaselineMixin, RegressorMixin, BaseEstimator):
         try:
             lower = scipy.linalg.cholesky(kernel.T, lower=True, overwrite_a=True, check_finite=False)
         except np.linalg.LinAlgError as error:
-            raise ModelInputError(
+            raise NotPositiveDefinite(
                 f"K + lambda I is not positive definite at width {width}, regularisation {regularization}; "
                 "increase the regularisation"
             ) from error
@@ -301,8 +311,11 @@ class _GridSearch:
     """k-fold cross-validation over widths x regularisations, then a refit on all data.
 
     Sets ``cv_mae_`` (n_widths, n_regularizations: mean validation MAE over folds),
-    ``solver_``, ``width_`` and ``regularization_``. Ties go to the first grid point in
-    scikit-learn's ``ParameterGrid`` order (regularisation outer, width inner).
+    ``solver_``, ``width_`` and ``regularization_``; with more rows than ``search_size`` the
+    search (and ``width_unit_value_``) uses a random subset of that many, ``search_rows_``
+    (see the module docstring). ``refused_`` lists the better grid points (width,
+    regularisation) whose final factorisation failed, if any. Ties go to the first grid point in scikit-learn's ``ParameterGrid`` order
+    (regularisation outer, width inner).
     """
 
     def _width_unit_value(self, features) -> float:
@@ -331,9 +344,36 @@ class _GridSearch:
             for i_width in range(len(widths)):
                 yield i_fold, i_width, train_table.matrix(i_width), val_table.matrix(i_width)
 
+    def _search_rows(self, n: int) -> np.ndarray:
+        """The rows the grid search runs on: all, or ``search_size`` of them drawn with ``random_state``."""
+        if self.search_size is None or int(self.search_size) >= n:
+            return np.arange(n)
+        if int(self.search_size) < 2:
+            raise ModelInputError(f"search_size must be at least 2 (or None), got {self.search_size!r}")
+        return np.sort(np.random.default_rng(self.random_state).choice(n, int(self.search_size), replace=False))
+
     def fit(self, X, y):
         X = self._as_input(X)
         y = targets(y, len(X))
+        rows = self.search_rows_ = self._search_rows(len(y))
+        searched_all = len(rows) == len(y)
+        widths, regularizations, shared = self._search(X if searched_all else X[rows], y[rows])
+        # Best grid point first (ties: ParameterGrid order). A point whose final factorisation fails
+        # (possible when the search saw fewer rows, or fell back to least squares) gives way to the next.
+        order = np.argsort(self.cv_mae_.T, axis=None, kind="stable")
+        self.refused_ = []
+        for i_reg, i_width in zip(*np.unravel_index(order, self.cv_mae_.T.shape)):
+            # The search's kernel at this width is the final one only when it saw every row.
+            kernel = shared.matrix(i_width) if shared is not None and searched_all else None
+            try:
+                return self._fit_fixed(X, y, widths[i_width], regularizations[i_reg], kernel)
+            except NotPositiveDefinite:
+                self.refused_.append([float(widths[i_width]), float(regularizations[i_reg])])
+        raise NotPositiveDefinite("K + lambda I is not positive definite at any grid point; add larger regularisations")
+
+    def _search(self, X, y):
+        """Cross-validate the grid on ``X`` (sets ``cv_mae_``); returns the widths, the regularisations
+        and the kernel table of ``X`` when one was shared by all folds (else None)."""
         regularizations = check_regularizations(self.regularizations)
         self.solver_ = choose_solver(self.solver, len(regularizations))
         folds = self._folds(len(y))
@@ -354,9 +394,7 @@ class _GridSearch:
             y_train, y_val = residuals[i_fold]
             errors[i_fold, i_width] = validation_errors(kernel_train, kernel_val, y_train, y_val, regularizations, self.solver_)
         self.cv_mae_ = errors.mean(axis=0)
-        i_reg, i_width = np.unravel_index(np.argmin(self.cv_mae_.T), self.cv_mae_.T.shape)
-        full_kernel = None if shared is None else shared.matrix(i_width)
-        return self._fit_fixed(X, y, widths[i_width], regularizations[i_reg], full_kernel)
+        return widths, regularizations, shared
 
 
 _STD_DOC = """
@@ -427,13 +465,17 @@ class KernelRidgeCV(_GlobalFeatures, _GridSearch, _KernelRidgeBase):
     width_unit : {"absolute", "median"}
         ``"median"``: ``widths`` are multiples of the median distance between random
         pairs of training rows (``width_unit_value_``), so one grid suits any descriptor.
+    search_size : int or None
+        With more training rows than this, the grid is searched on a random subset of this
+        many (drawn with ``random_state``) and the choice refitted on all rows; None: all rows.
     """
 
     def __init__(self, kernel="laplacian", widths=(1.0, 4.0, 16.0, 64.0, 256.0, 1024.0),
                  regularizations=(1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0), cv=5, random_state=0, solver="auto",
                  scale=False, baseline="elements", predictive_std=True, interval_level=0.9, progress=None,
-                 width_unit="absolute"):
+                 width_unit="absolute", search_size=None):
         self.kernel = kernel
+        self.search_size = search_size
         self.widths = widths
         self.width_unit = width_unit
         self.regularizations = regularizations
@@ -493,7 +535,7 @@ class AtomwiseKernelRidgeCV(_AtomFeatures, _GridSearch, _KernelRidgeBase):
 
     Parameters
     ----------
-    widths, regularizations, cv, random_state, solver, baseline, progress, width_unit :
+    widths, regularizations, cv, random_state, solver, baseline, progress, width_unit, search_size :
         As in :class:`KernelRidgeCV`.
     {_ATOM_DOC}
     {_STD_DOC}
@@ -501,7 +543,8 @@ class AtomwiseKernelRidgeCV(_AtomFeatures, _GridSearch, _KernelRidgeBase):
 
     def __init__(self, widths=(0.5, 1.0, 2.0, 4.0), regularizations=(1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0), cv=5,
                  random_state=0, solver="auto", dtype="float64", block_size=2048, baseline="elements",
-                 predictive_std=True, interval_level=0.9, progress=None, width_unit="absolute"):
+                 predictive_std=True, interval_level=0.9, progress=None, width_unit="absolute", search_size=None):
+        self.search_size = search_size
         self.widths = widths
         self.width_unit = width_unit
         self.regularizations = regularizations

@@ -55,6 +55,7 @@ from molinv.models.inputs import (
     training_fingerprint,
 )
 from molinv.models.kernel_ridge import (
+    NotPositiveDefinite,
     check_interval_level,
     check_regularizations,
     fit_scaling,
@@ -275,7 +276,11 @@ class NystromRidge(BaselineMixin, RegressorMixin, BaseEstimator):
             if self.predictive_std:
                 kept.append(features[calibration[chunk]])
         gram[np.diag_indices(rank)] += self.regularization_
-        lower = scipy.linalg.cholesky(gram, lower=True)
+        try:
+            lower = scipy.linalg.cholesky(gram, lower=True)
+        except np.linalg.LinAlgError as error:
+            raise NotPositiveDefinite(f"Phi^T Phi + lambda I is not positive definite at width {self.width_}, "
+                                      f"regularisation {self.regularization_}; increase the regularisation") from error
         self.coef_ = scipy.linalg.cho_solve((lower, True), moment)
         forget_uncertainty(self)
         if self.predictive_std:
@@ -321,7 +326,10 @@ class NystromRidgeCV(NystromRidge):
     width. The baseline is refitted on each training fold, as in
     :class:`~molinv.models.KernelRidgeCV`. The choice minimises the mean validation MAE
     (ties: the first width, then the first regularisation); the model is then refitted on
-    all training molecules with it.
+    all training molecules with it. With more molecules than ``search_size`` the folds are
+    cut from a random subset of that many (same landmarks), so the search costs a fixed
+    number of feature passes over the subset whatever the training size (common practice,
+    no source; see :mod:`molinv.models.kernel_ridge`).
 
     Parameters
     ----------
@@ -331,17 +339,22 @@ class NystromRidgeCV(NystromRidge):
     regularizations : sequence of float
     cv : int
         Number of folds (shuffled with ``random_state``).
+    search_size : int or None
+        Molecules the search runs on when there are more (drawn with ``random_state``);
+        None: all of them.
     Other parameters as in :class:`NystromRidge`.
 
-    Sets ``cv_mae_`` (n_widths, n_regularizations), ``width_unit_value_``, ``width_`` and
-    ``regularization_`` besides the fitted state of :class:`NystromRidge`.
+    Sets ``cv_mae_`` (n_widths, n_regularizations; inf where a fold could not be factorised),
+    ``search_rows_``, ``width_unit_value_``, ``width_``, ``regularization_`` and ``refused_`` (better
+    grid points whose final factorisation failed) besides the fitted state of :class:`NystromRidge`.
     """
 
     def __init__(self, kernel="gaussian", widths=(0.5, 1.0, 2.0, 4.0), regularizations=(1e-8, 1e-6, 1e-4, 1e-2),
                  cv=5, width_unit="median", n_landmarks=1000, random_state=0, rcond=1e-12, dtype="float64",
                  scale=False, baseline="elements", chunk_size=2000, predictive_std=True, interval_level=0.9,
-                 progress=None):
+                 progress=None, search_size=None):
         self.kernel = kernel
+        self.search_size = search_size
         self.widths = widths
         self.regularizations = regularizations
         self.cv = cv
@@ -356,6 +369,14 @@ class NystromRidgeCV(NystromRidge):
         self.predictive_std = predictive_std
         self.interval_level = interval_level
         self.progress = progress
+
+    def _search_rows(self, n: int) -> np.ndarray:
+        if self.search_size is None or int(self.search_size) >= n:
+            return np.arange(n)
+        if int(self.search_size) < int(self.cv):
+            raise ModelInputError(f"search_size must be at least cv={self.cv} (or None), got {self.search_size!r}")
+        # A generator of its own, so that the landmark draw does not depend on search_size.
+        return np.sort(np.random.default_rng([self.random_state, 1]).choice(n, int(self.search_size), replace=False))
 
     def _width_unit_value(self, X) -> float:
         if self.kernel == "atomwise":
@@ -372,18 +393,21 @@ class NystromRidgeCV(NystromRidge):
         reserved = self._choose_landmarks(X, np.random.default_rng(self.random_state))
         self.width_unit_value_ = self._width_unit_value(X)
         widths = check_widths(self.widths) * self.width_unit_value_
-        folds = list(KFold(int(self.cv), shuffle=True, random_state=self.random_state).split(np.zeros((len(y), 1))))
+        rows = self.search_rows_ = self._search_rows(len(y))
+        searched, y_searched = (X, y) if len(rows) == len(y) else (X[rows], y[rows])
+        folds = list(KFold(int(self.cv), shuffle=True, random_state=self.random_state).split(np.zeros((len(rows), 1))))
         residuals = []
         for train, validation in folds:
-            state = fit_baseline(self.baseline, X[train], y[train])
-            residuals.append((y[train] - predict_baseline(state, X[train]), y[validation] - predict_baseline(state, X[validation])))
+            state = fit_baseline(self.baseline, searched[train], y_searched[train])
+            residuals.append((y_searched[train] - predict_baseline(state, searched[train]),
+                              y_searched[validation] - predict_baseline(state, searched[validation])))
         errors = np.zeros((len(widths), len(regularizations)))
         for i_width, width in enumerate(widths):
             self.width_ = float(width)
             self._fit_projections()
-            features = np.empty((len(y), int(self.projection_shapes_[:, 1].sum())))
-            for chunk in self._chunks(len(y)):
-                features[chunk] = self._features(X[chunk])
+            features = np.empty((len(rows), int(self.projection_shapes_[:, 1].sum())))
+            for chunk in self._chunks(len(rows)):
+                features[chunk] = self._features(searched[chunk])
             gram = features.T @ features
             for (train, validation), (y_train, y_validation) in zip(folds, residuals):
                 held_out = features[validation]
@@ -392,9 +416,23 @@ class NystromRidgeCV(NystromRidge):
                 for i_reg, regularization in enumerate(regularizations):
                     system = fold_gram.copy()
                     system[np.diag_indices_from(system)] += regularization
-                    coef = scipy.linalg.cho_solve(scipy.linalg.cho_factor(system, lower=True), moment)
+                    try:
+                        coef = scipy.linalg.cho_solve(scipy.linalg.cho_factor(system, lower=True), moment)
+                    except np.linalg.LinAlgError:
+                        # Too small a regularisation for this width: not a candidate.
+                        errors[i_width, i_reg] = np.inf
+                        continue
                     errors[i_width, i_reg] += np.mean(np.abs(held_out @ coef - y_validation)) / len(folds)
             del features
         self.cv_mae_ = errors
-        i_width, i_reg = np.unravel_index(np.argmin(errors), errors.shape)
-        return self._fit_fixed(X, y, widths[i_width], regularizations[i_reg], reserved)
+        # Best first (ties: the first width, then the first regularisation); a point whose final
+        # factorisation fails gives way to the next, as in KernelRidgeCV.
+        self.refused_ = []
+        for i_width, i_reg in zip(*np.unravel_index(np.argsort(errors, axis=None, kind="stable"), errors.shape)):
+            if not np.isfinite(errors[i_width, i_reg]):
+                break
+            try:
+                return self._fit_fixed(X, y, widths[i_width], regularizations[i_reg], reserved)
+            except NotPositiveDefinite:
+                self.refused_.append([float(widths[i_width]), float(regularizations[i_reg])])
+        raise NotPositiveDefinite("no grid point gives a positive definite system; add larger regularisations")
