@@ -111,9 +111,15 @@ def write_part(folder, number: int, result) -> Path:
     return target
 
 
+def iter_tables(folder) -> Iterator[pd.DataFrame]:
+    """Each finished chunk table, in chunk order."""
+    for path in sorted(Path(folder).glob("part-*.csv")):
+        yield pd.read_csv(path, keep_default_na=False, na_values=[""])
+
+
 def read_tables(folder) -> pd.DataFrame:
     """All finished chunk tables, in chunk order, as one table."""
-    parts = [pd.read_csv(path, keep_default_na=False, na_values=[""]) for path in sorted(Path(folder).glob("part-*.csv"))]
+    parts = list(iter_tables(folder))
     return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
 
 
