@@ -1,12 +1,19 @@
-"""Choosing the next batch to compute: the most uncertain candidates, spread out.
+"""Choosing the next batch to compute.
 
-A batch of the k largest predicted standard deviations tends to hold near-copies
-of one another (isomers a few bonds apart have similar uncertainty), and
-computing near-copies teaches the model little more than one of them. So the
-k are chosen among a shortlist of the most uncertain by greedy farthest-point
-selection in descriptor space (Gonzalez, Theor. Comput. Sci. 38, 293, 1985):
-start with the most uncertain, then repeatedly add the shortlisted candidate
-farthest (Euclidean) from everything chosen so far and from the labelled set.
+Three strategies (:data:`STRATEGIES`):
+
+* 'uncertain' (:func:`pick_batch`): a batch of the k largest predicted standard
+  deviations tends to hold near-copies of one another (isomers a few bonds apart
+  have similar uncertainty), so the k are chosen among a shortlist of the most
+  uncertain by greedy farthest-point selection in descriptor space (Gonzalez,
+  Theor. Comput. Sci. 38, 293, 1985): start with the most uncertain, then
+  repeatedly add the shortlisted candidate farthest (Euclidean) from everything
+  chosen so far and from the labelled set. The most uncertain molecules are
+  unusual ones: on QM9 this lowers the largest test error but not the MAE.
+* 'spread' (:func:`spread_batch`): farthest-point selection alone, no model.
+* 'variance' (:func:`variance_batch`): the candidates whose labels most lower the
+  summed predictive variance over a sample of the candidates, which weighs
+  uncertainty by how many molecules resemble the candidate.
 """
 
 from __future__ import annotations
