@@ -216,7 +216,7 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
     chunks = len(list(folder.glob("part-*.csv")))
 
     def tables(description):
-        return tqdm(iter_tables(folder), total=chunks, desc=description, unit="chunk",
+        return tqdm(iter_tables(folder, text_columns=["name"]), total=chunks, desc=description, unit="chunk",
                     disable=None if progress is None else not progress)
 
     book = read_book(lambda: tables("rank: read"), unit, target)
