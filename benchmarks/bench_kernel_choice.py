@@ -32,8 +32,8 @@ from molinv.recipes import make_descriptor, model_inputs
 
 WIDTHS = tuple(2.0**k for k in range(-3, 11))
 REGULARIZATIONS = tuple(10.0**k for k in range(-12, 1))
-SETTINGS = {"laplacian, raw": ("laplacian", False), "gaussian, raw": ("gaussian", False),
-            "laplacian, standardised": ("laplacian", True), "gaussian, standardised": ("gaussian", True)}
+SETTINGS = {"laplacian-raw": ("laplacian", False), "gaussian-raw": ("gaussian", False),
+            "laplacian-standardised": ("laplacian", True), "gaussian-standardised": ("gaussian", True)}
 
 
 def main() -> int:

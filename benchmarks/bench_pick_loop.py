@@ -4,11 +4,13 @@
         --sizes 100 200 300 500 700 1000 1400 2000 --seeds 0 1 2 --out benchmarks/results/pick_loop
 
 One QM9 sample and one test set; for every seed, the same random initial set of
-``sizes[0]`` molecules, then rounds that add molecules picked by predicted
-uncertainty (with and without the diversity step) or at random, up to
-``sizes[-1]``. The model is refitted (kernel ridge, width and regularisation by
-5-fold cross-validation) every round. Atomization energy from U0, kcal/mol.
-Resumable: rerun the same command after an interruption.
+``sizes[0]`` molecules, then rounds that add molecules picked by each strategy of
+``--strategies`` (see :class:`molinv.labels.loop.PickLoop`; 'uncertain' once per
+``--shortlists`` factor) or at random, up to ``sizes[-1]``. The model is refitted
+(kernel ridge) every round: width and regularisation by 5-fold cross-validation
+every round, or with ``--tune-once`` on round 0 only (the 100 random molecules) and
+kept. Atomization energy from U0, kcal/mol. Resumable: rerun the same command
+after an interruption.
 
 Question asked (issue 7): does picking reach, with at most half the labels, the
 test MAE that random batches reach with ``sizes[-1]`` labels?
@@ -27,6 +29,7 @@ import numpy as np
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
+from molinv.descriptors.store import FeatureStore
 from molinv.evaluation import summarize
 from molinv.evaluation.curves import test_split
 from molinv.evaluation.report import plot_learning_curves
@@ -55,8 +58,13 @@ def main() -> int:
     parser.add_argument("--sizes", type=int, nargs="+", default=[100, 200, 300, 500, 700, 1000, 1400, 2000])
     parser.add_argument("--seeds", type=int, nargs="+", default=[0, 1, 2])
     parser.add_argument("--descriptor", default="bonds")
+    parser.add_argument("--strategies", nargs="+", default=["uncertain"],
+                        choices=["uncertain", "spread", "variance"], help="compared with random batches")
     parser.add_argument("--shortlists", type=float, nargs="+", default=[4.0, 1.0],
                         help="shortlist factors of the uncertain strategy (1: no diversity step)")
+    parser.add_argument("--reference", type=int, default=1000, help="reference sample of the variance strategy")
+    parser.add_argument("--tune-once", action="store_true", help="cross-validate on round 0 only")
+    parser.add_argument("--cache", type=Path, help="feature cache folder")
     parser.add_argument("--out", type=Path, default=Path("benchmarks/results/pick_loop"))
     args = parser.parse_args()
 
@@ -65,21 +73,25 @@ def main() -> int:
     energies = np.array([m.info["atomization_energy"] for m in molecules])
     names = [m.info["name"] for m in molecules]
     descriptor = make_descriptor(args.descriptor, progress=True).fit(molecules)
-    inputs = model_inputs(descriptor, molecules)
+    inputs = model_inputs(descriptor, molecules, FeatureStore(args.cache) if args.cache else None)
     vectors = molecule_vectors(inputs, descriptor.elements_)
     test, _ = test_split(len(molecules), args.test_size, seed=0)
     print(f"{len(molecules)} QM9 molecules described with {args.descriptor} in {time.perf_counter() - started:.0f} s")
 
-    variants = [("random", 4.0)] + [("uncertain", factor) for factor in args.shortlists]
+    variants = [("random", 4.0)]
+    for strategy in args.strategies:
+        variants += [("uncertain", factor) for factor in args.shortlists] if strategy == "uncertain" else [(strategy, 4.0)]
     tables = []
     with threadpool_limits(limits=1, user_api="blas"):
         for seed in args.seeds:
             for strategy, factor in variants:
-                folder = args.out / "runs" / f"{strategy}-{factor:g}-seed{seed}"
+                name = f"{strategy}-{factor:g}" if strategy == "uncertain" else strategy
+                folder = args.out / "runs" / f"{name}-seed{seed}"
                 hidden = HiddenLabels(energies)
                 regressor = make_regressor("kernel", descriptor.per_atom, descriptor=args.descriptor)
-                loop = PickLoop(folder, names, inputs, vectors, regressor, hidden, test, sizes=args.sizes, strategy=strategy, seed=seed,
-                                shortlist_factor=factor)
+                loop = PickLoop(folder, names, inputs, vectors, regressor, hidden, test, sizes=args.sizes,
+                                strategy=strategy, seed=seed, shortlist_factor=factor,
+                                reference_size=args.reference, tune_once=args.tune_once)
                 tic = time.perf_counter()
                 table = loop.run(progress=True)
                 print(f"seed {seed} {loop.label}: {time.perf_counter() - tic:.0f} s, labels revealed this run "
@@ -94,9 +106,12 @@ def main() -> int:
     largest = max(args.sizes)
     random_curve = summary[summary["label"] == "random"]
     goal = float(random_curve.loc[random_curve["size"] == largest, "mae_mean"].iloc[0])
-    lines = [f"QM9 sample {args.molecules}, test {args.test_size}, descriptor {args.descriptor}, kernel ridge (CV), "
-             f"seeds {args.seeds}; MAE kcal/mol, mean over seeds",
+    tuning = "CV on round 0 only, then fixed" if args.tune_once else "CV every round"
+    lines = [f"QM9 sample {args.molecules}, test {args.test_size}, descriptor {args.descriptor}, kernel ridge "
+             f"({tuning}), seeds {args.seeds}; MAE kcal/mol, mean over seeds",
              summary.pivot(index="size", columns="label", values="mae_mean").round(2).to_string(), "",
+             "MAE kcal/mol, standard deviation over seeds",
+             summary.pivot(index="size", columns="label", values="mae_std").round(2).to_string(), "",
              "RMSE kcal/mol, mean over seeds",
              summary.pivot(index="size", columns="label", values="rmse_mean").round(2).to_string(), "",
              "largest test error kcal/mol, mean over seeds",

@@ -373,10 +373,22 @@ def run_label(args) -> int:
     return 0
 
 
+def add_strategy_options(parser, choices) -> None:
+    parser.add_argument("--strategy", default="uncertain", choices=choices,
+                        help="uncertain (default): most uncertain, spread out; spread: farthest point in scaled "
+                             "descriptor space, no model; variance: largest drop of the summed predicted variance "
+                             "over the candidates (model kernel only)"
+                             + ("; random: the baseline" if "random" in choices else ""))
+    parser.add_argument("--shortlist", type=float, default=4.0,
+                        help="uncertain: pick among the shortlist x k most uncertain (default 4; 1 = uncertainty only)")
+    parser.add_argument("--reference", type=int, default=1000,
+                        help="variance: candidates sampled to stand for all (default 1000)")
+
+
 def run_pick(args) -> int:
     import pandas as pd
 
-    from .labels.choose import choose_next
+    from .labels.choose import STRATEGIES, choose_next
     from .molecules.units import convert_energy
     from .recipes import EnergyModel
 
@@ -390,7 +402,8 @@ def run_pick(args) -> int:
         from .molecules import read_molecules
 
         labelled = read_molecules(args.labelled).molecules
-    choice = choose_next(model, result.molecules, args.k, shortlist_factor=args.shortlist, labelled=labelled)
+    choice = choose_next(model, result.molecules, args.k, shortlist_factor=args.shortlist, labelled=labelled,
+                         strategy=args.strategy, reference_size=args.reference, seed=args.seed)
     order = {int(p): rank + 1 for rank, p in enumerate(choice["picked"])}
     table = pd.DataFrame({
         "name": [str(a.info.get("name", f"molecule_{i}")) for i, a in enumerate(result.molecules)],
@@ -402,7 +415,7 @@ def run_pick(args) -> int:
     })
     table.to_csv(args.out, index=False)
     picked = table[table["pick_order"] != ""].sort_values("pick_order").drop(columns="reason")
-    print(f"picked {args.k} of {len(table)} candidates (largest predicted std, spread out) -> {args.out}")
+    print(f"picked {args.k} of {len(table)} candidates ({STRATEGIES[args.strategy]}) -> {args.out}")
     print(picked.to_string(index=False, float_format=lambda v: f"{v:.2f}"))
     skipped = int((table["reason"] != "").sum())
     if skipped:
@@ -437,8 +450,9 @@ def run_pick_loop(args) -> int:
     descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, progress=True).fit(molecules)
     inputs = model_inputs(descriptor, molecules, feature_store(args))
     loop = PickLoop(args.out, molecule_names(molecules), inputs, molecule_vectors(inputs, descriptor.elements_),
-                    make_regressor(args.model, descriptor.per_atom, descriptor=args.descriptor), labeller, test, sizes=args.sizes,
-                    strategy=args.strategy, seed=args.seed, shortlist_factor=args.shortlist)
+                    make_regressor(args.model, descriptor.per_atom, descriptor=args.descriptor), labeller, test,
+                    sizes=args.sizes, strategy=args.strategy, seed=args.seed, shortlist_factor=args.shortlist,
+                    reference_size=args.reference, tune_once=args.tune_once)
     rounds = loop.run(progress=True)
     summary = summarize(rounds, unit=args.unit)
     summary.to_csv(args.out / "summary.csv", index=False)
@@ -592,15 +606,15 @@ def build_parser() -> argparse.ArgumentParser:
     label.set_defaults(run=run_label)
 
     pick = verbs.add_parser("pick", help="choose the next k candidates worth computing",
-                            description="Predict every candidate with a model file and pick k among the most "
-                                        "uncertain, spread out in descriptor space (greedy farthest point). "
-                                        + UNITS_HELP)
+                            description="Predict every candidate with a model file and pick k of them: by default "
+                                        "among the most uncertain, spread out in descriptor space (greedy farthest "
+                                        "point); see --strategy. " + UNITS_HELP)
     pick.add_argument("model_file", type=Path, help="model file written by 'molinv fit' (model kernel or large)")
     add_input_options(pick)
     pick.add_argument("--k", type=int, default=10, help="how many to pick (default 10)")
-    pick.add_argument("--shortlist", type=float, default=4.0,
-                      help="pick among the shortlist x k most uncertain (default 4; 1 = uncertainty only)")
     pick.add_argument("--labelled", type=Path, help="molecules already computed: candidates near them count as near")
+    add_strategy_options(pick, ["uncertain", "spread", "variance"])
+    pick.add_argument("--seed", type=int, default=0, help="seed of the reference sample of --strategy variance")
     pick.add_argument("--unit", default="kcal/mol", help="energy unit of the output (default kcal/mol)")
     pick.add_argument("--out", type=Path, required=True, help="table of all candidates with pick_order (.csv)")
     pick.set_defaults(run=run_pick)
@@ -618,9 +632,9 @@ def build_parser() -> argparse.ArgumentParser:
     loop.add_argument("--sizes", type=int, nargs="+", default=[100, 200, 300, 500, 700, 1000],
                       help="labelled training molecules after each round")
     loop.add_argument("--test-size", type=int, default=500, help="test molecules, labelled first (default 500)")
-    loop.add_argument("--strategy", default="uncertain", choices=["uncertain", "random"],
-                      help="uncertain: most uncertain, spread out; random: the baseline")
-    loop.add_argument("--shortlist", type=float, default=4.0, help="as in 'molinv pick' (default 4)")
+    add_strategy_options(loop, ["uncertain", "spread", "variance", "random"])
+    loop.add_argument("--tune-once", action="store_true",
+                      help="search width and regularisation on round 0 only, keep them later (cheaper refits)")
     loop.add_argument("--seed", type=int, default=0, help="seed of the test set, initial set and random batches")
     loop.add_argument("--unit", default="kcal/mol", help="energy unit of the report (default kcal/mol)")
     loop.add_argument("--out", type=Path, required=True, help="loop folder (resumable)")

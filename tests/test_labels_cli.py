@@ -3,6 +3,8 @@
 Data: QM9 (Ramakrishnan et al., Sci. Data 1, 140022, 2014); energies GFN2-xTB through tblite.
 """
 
+import json
+
 import pandas as pd
 import pytest
 
@@ -29,6 +31,11 @@ def test_pick_and_pick_loop(tmp_path, capsys):
     assert main(["pick", str(model), "qm9:200:6", "--k", "4", "--out", str(tmp_path / "picked.csv")]) == 0
     picked = pd.read_csv(tmp_path / "picked.csv")
     assert len(picked) == 200 and sorted(picked["pick_order"].dropna()) == [1, 2, 3, 4]
+    for strategy in ("spread", "variance"):
+        out = tmp_path / f"{strategy}.csv"
+        assert main(["pick", str(model), "qm9:200:6", "--k", "4", "--strategy", strategy, "--reference", "50",
+                     "--out", str(out)]) == 0
+        assert sorted(pd.read_csv(out)["pick_order"].dropna()) == [1, 2, 3, 4]
     capsys.readouterr()
     folder = tmp_path / "loop"
     arguments = ["pick-loop", "qm9:300:8", "--simulate", "--descriptor", "coulomb-sorted", "--sizes", "20", "40",
@@ -40,6 +47,10 @@ def test_pick_and_pick_loop(tmp_path, capsys):
     assert "labels revealed in this run: 20" in capsys.readouterr().out
     assert list(pd.read_csv(folder / "rounds.csv")["size"]) == [20, 40, 60]
     assert (folder / "learning_curve.png").stat().st_size > 0
+    tuned = tmp_path / "tuned"
+    assert main(arguments[:-1] + [str(tuned), "--strategy", "variance", "--reference", "50", "--tune-once"]) == 0
+    assert "variance, test set of 80" in capsys.readouterr().out
+    assert json.loads((tuned / "loop.json").read_text())["tune_once"] is True
 
 
 def test_pick_loop_computes_the_labels_it_picks(tmp_path, capsys):

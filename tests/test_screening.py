@@ -104,3 +104,16 @@ def test_applicability_flag_on_larger_molecules(qm9):
     # Measured: 0.026 of the similar molecules flagged, 1.000 of those with 9 heavy atoms.
     assert flagged_similar <= 0.05
     assert flagged_large >= 0.8
+
+
+def test_digit_only_names_stay_text_across_chunks(tmp_path, small_model):
+    # One record per chunk: the ranking reads the names back from the chunk files, where '007'
+    # and '7' once both became the number 7 and the second was flagged as a repeated name.
+    model, _ = small_model
+    candidates = tmp_path / "batch.csv"
+    candidates.write_text("name,smiles\n007,CCO\n7,CCCO\n")
+    summary = screen_file(model, candidates, tmp_path / "out", model_fingerprint="m", target="atomization_energy",
+                          chunk_size=1, executor=executor_for(None, 1))
+    table = pd.read_csv(summary.table_path, dtype={"name": str})
+    assert sorted(table["name"]) == ["007", "7"]
+    assert list(table["status"]) == ["ok", "ok"]

@@ -111,9 +111,18 @@ def write_part(folder, number: int, result) -> Path:
     return target
 
 
-def read_tables(folder) -> pd.DataFrame:
-    """All finished chunk tables, in chunk order, as one table."""
-    parts = [pd.read_csv(path, keep_default_na=False, na_values=[""]) for path in sorted(Path(folder).glob("part-*.csv"))]
+def iter_tables(folder, text_columns: Iterable[str] = ()) -> Iterator[pd.DataFrame]:
+    """Each finished chunk table, in chunk order. ``text_columns`` are read as text: a CSV file
+    does not keep types, and a name such as '007' would otherwise come back as the number 7."""
+    text = {column: str for column in text_columns}
+    for path in sorted(Path(folder).glob("part-*.csv")):
+        yield pd.read_csv(path, keep_default_na=False, na_values=[""], dtype=text)
+
+
+def read_tables(folder, text_columns: Iterable[str] = ()) -> pd.DataFrame:
+    """All finished chunk tables, in chunk order, as one table (``text_columns`` as in
+    :func:`iter_tables`)."""
+    parts = list(iter_tables(folder, text_columns))
     return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame()
 
 

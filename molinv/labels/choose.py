@@ -1,17 +1,25 @@
-"""Choosing the next batch to compute: the most uncertain candidates, spread out.
+"""Choosing the next batch to compute.
 
-A batch of the k largest predicted standard deviations tends to hold near-copies
-of one another (isomers a few bonds apart have similar uncertainty), and
-computing near-copies teaches the model little more than one of them. So the
-k are chosen among a shortlist of the most uncertain by greedy farthest-point
-selection in descriptor space (Gonzalez, Theor. Comput. Sci. 38, 293, 1985):
-start with the most uncertain, then repeatedly add the shortlisted candidate
-farthest (Euclidean) from everything chosen so far and from the labelled set.
+Three strategies (:data:`STRATEGIES`):
+
+* 'uncertain' (:func:`pick_batch`): a batch of the k largest predicted standard
+  deviations tends to hold near-copies of one another (isomers a few bonds apart
+  have similar uncertainty), so the k are chosen among a shortlist of the most
+  uncertain by greedy farthest-point selection in descriptor space (Gonzalez,
+  Theor. Comput. Sci. 38, 293, 1985): start with the most uncertain, then
+  repeatedly add the shortlisted candidate farthest (Euclidean) from everything
+  chosen so far and from the labelled set. The most uncertain molecules are
+  unusual ones: on QM9 this lowers the largest test error but not the MAE.
+* 'spread' (:func:`spread_batch`): farthest-point selection alone, no model.
+* 'variance' (:func:`variance_batch`): the candidates whose labels most lower the
+  summed predictive variance over a sample of the candidates, which weighs
+  uncertainty by how many molecules resemble the candidate.
 """
 
 from __future__ import annotations
 
 import numpy as np
+import scipy.linalg
 from sklearn.utils.validation import check_is_fitted
 
 from molinv.descriptors.base import AtomFeatures
@@ -38,6 +46,28 @@ def _squared_distances(rows: np.ndarray, centres: np.ndarray) -> np.ndarray:
     return np.maximum(squared.min(axis=1), 0.0)
 
 
+def _farthest_points(rows: np.ndarray, k: int, nearest: np.ndarray, first: int) -> list[int]:
+    """Greedy farthest-point order: ``first``, then repeatedly the row farthest from all chosen so far,
+    ``nearest`` holding each row's squared distance to what was chosen before (labelled rows)."""
+    chosen = [first]
+    nearest = np.minimum(nearest, _squared_distances(rows, rows[chosen]))
+    while len(chosen) < k:
+        nearest[chosen] = -np.inf
+        following = int(np.argmax(nearest))
+        chosen.append(following)
+        nearest = np.minimum(nearest, _squared_distances(rows, rows[[following]]))
+    return chosen
+
+
+def _check_request(n: int, k: int) -> None:
+    if not 1 <= k <= n:
+        raise LabelError(f"cannot pick {k} of {n} candidates")
+
+
+def _labelled_rows(labelled_vectors, width: int) -> np.ndarray:
+    return np.zeros((0, width)) if labelled_vectors is None else np.asarray(labelled_vectors, float)
+
+
 def pick_batch(std, vectors, k: int, shortlist_factor: float = 4.0, labelled_vectors=None) -> np.ndarray:
     """Positions of ``k`` candidates: farthest-point selection among the most uncertain.
 
@@ -56,8 +86,7 @@ def pick_batch(std, vectors, k: int, shortlist_factor: float = 4.0, labelled_vec
     vectors = np.asarray(vectors, dtype=float)
     if std.ndim != 1 or vectors.ndim != 2 or len(std) != len(vectors):
         raise LabelError(f"std {std.shape} and vectors {vectors.shape} must be (n,) and (n, d)")
-    if not 1 <= k <= len(std):
-        raise LabelError(f"cannot pick {k} of {len(std)} candidates")
+    _check_request(len(std), k)
     if not np.all(np.isfinite(std)):
         raise LabelError("the model gave no finite standard deviation for some candidates; use a kernel model")
     if shortlist_factor < 1:
@@ -65,21 +94,124 @@ def pick_batch(std, vectors, k: int, shortlist_factor: float = 4.0, labelled_vec
     size = min(len(std), int(np.ceil(shortlist_factor * k)))
     shortlist = np.argsort(-std, kind="stable")[:size]
     rows = vectors[shortlist]
-    labelled = np.zeros((0, vectors.shape[1])) if labelled_vectors is None else np.asarray(labelled_vectors, float)
+    nearest = _squared_distances(rows, _labelled_rows(labelled_vectors, vectors.shape[1]))
+    return shortlist[_farthest_points(rows, k, nearest, int(np.argmax(std[shortlist])))]
+
+
+def spread_batch(vectors, k: int, labelled_vectors=None) -> np.ndarray:
+    """Positions of ``k`` candidates by greedy farthest-point selection alone, no model.
+
+    Each descriptor entry is first scaled to unit standard deviation over the candidates
+    (constant entries left as they are), so that no entry dominates the distance by its unit.
+    The first pick is the candidate farthest from the labelled set, or, with none, the one
+    nearest the candidates' mean. Returns positions in the order picked.
+    """
+    vectors = np.asarray(vectors, dtype=float)
+    if vectors.ndim != 2:
+        raise LabelError(f"vectors {vectors.shape} must be (n, d)")
+    _check_request(len(vectors), k)
+    mean, spread = vectors.mean(axis=0), vectors.std(axis=0)
+    spread = np.where(spread > 0, spread, 1.0)
+    rows = (vectors - mean) / spread
+    labelled = (_labelled_rows(labelled_vectors, vectors.shape[1]) - mean) / spread
     nearest = _squared_distances(rows, labelled)
-    chosen = [int(np.argmax(std[shortlist]))]
-    nearest = np.minimum(nearest, _squared_distances(rows, rows[chosen]))
-    while len(chosen) < k:
-        nearest[chosen] = -np.inf
-        following = int(np.argmax(nearest))
-        chosen.append(following)
-        nearest = np.minimum(nearest, _squared_distances(rows, rows[[following]]))
-    return shortlist[chosen]
+    first = int(np.argmax(nearest)) if len(labelled) else int(np.argmin(np.sum(rows**2, axis=1)))
+    return np.asarray(_farthest_points(rows, k, nearest, first))
 
 
-def choose_next(model, candidates, k: int, shortlist_factor: float = 4.0, labelled=None) -> dict[str, np.ndarray]:
+def variance_batch(kernel, prior_variance, known, k: int, noise: float, reference) -> np.ndarray:
+    """Positions of ``k`` candidates that most lower the summed predictive variance over ``reference``.
+
+    The Gaussian-process reading of kernel ridge (see :mod:`molinv.models.kernel_ridge`) gives
+    the predictive covariance of any two molecules after labelling a set; labelling candidate
+    ``c`` lowers the variance at ``r`` by ``cov(r, c)^2 / (var(c) + noise)``. Each pick is the
+    candidate with the largest reduction summed over the reference candidates, then the
+    covariances are updated as if it were labelled (Cohn, Ghahramani, Jordan, J. Artif. Intell.
+    Res. 4, 129, 1996, the integrated-variance criterion). Unlike the largest variance alone, this
+    favours candidates that resemble many others: an outlier lowers little variance but its own.
+    No energy is needed, only the kernel; the model's width and regularisation fix it.
+
+    Parameters
+    ----------
+    kernel : callable ``(rows, columns) -> (len(rows), len(columns))`` prior kernel between
+        candidates given by position.
+    prior_variance : (n,) ``k(c, c)`` of each candidate.
+    known : (m, n) ``L^{-1} K(labelled, candidates)`` with ``L L^T = K(labelled, labelled) + noise I``
+        (a fitted model's ``cholesky_``); ``(0, n)`` when nothing is labelled yet.
+    k : batch size.
+    noise : the regularisation added to the kernel diagonal.
+    reference : positions of the candidates whose variance counts (a random sample of the pool
+        stands for the molecules the model will be used on).
+
+    Returns positions in the order picked. Cost per pick: O(n len(reference) + n (m + k)).
+    """
+    prior_variance = np.asarray(prior_variance, dtype=float)
+    known = np.asarray(known, dtype=float)
+    reference = np.asarray(reference, dtype=int)
+    n = len(prior_variance)
+    if known.ndim != 2 or known.shape[1] != n:
+        raise LabelError(f"known {known.shape} must have one column per candidate ({n})")
+    _check_request(n, k)
+    if len(reference) == 0:
+        raise LabelError("variance picking needs at least one reference candidate")
+    covariance = kernel(np.arange(n), reference) - known.T @ known[:, reference]
+    variance = np.maximum(prior_variance - np.sum(known**2, axis=0), 0.0)
+    added = np.zeros((k, n))
+    chosen = []
+    for step in range(k):
+        reduction = np.sum(covariance**2, axis=1) / (variance + noise)
+        reduction[chosen] = -np.inf
+        pick = int(np.argmax(reduction))
+        chosen.append(pick)
+        row = kernel(np.array([pick]), np.arange(n))[0] - known[:, pick] @ known - added[:step, pick] @ added[:step]
+        added[step] = row / np.sqrt(variance[pick] + noise)
+        covariance -= np.outer(added[step], added[step, reference])
+        variance = np.maximum(variance - added[step] ** 2, 0.0)
+    return np.asarray(chosen)
+
+
+def model_variance_batch(model, inputs, k: int, reference_size: int = 1000, seed=0, labelled_inputs=None):
+    """:func:`variance_batch` for a fitted kernel-ridge model (``prior_kernel``, ``cholesky_``): positions of
+    ``k`` of the candidates ``inputs``. Labelled are the model's training set and ``labelled_inputs``
+    (optional); the reference is a seeded random sample of ``reference_size`` candidates (all if fewer)."""
+    if not hasattr(model, "prior_kernel") or not hasattr(model, "cholesky_"):
+        raise LabelError("variance picking needs an exact kernel model fitted with predictive_std "
+                         "(model 'kernel')")
+    noise = model.regularization_
+    factor = model.cholesky_
+    known = scipy.linalg.solve_triangular(factor, model.prior_kernel(inputs).T, lower=True, check_finite=False)
+    if labelled_inputs is not None and len(labelled_inputs):
+        # Block Cholesky: extend the training factor by the extra labelled molecules.
+        across = scipy.linalg.solve_triangular(factor, model.prior_kernel(labelled_inputs).T, lower=True,
+                                               check_finite=False)
+        extra = model.prior_kernel(labelled_inputs, labelled_inputs) - across.T @ across
+        extra.flat[:: len(extra) + 1] += noise
+        lower = scipy.linalg.cholesky(extra, lower=True, check_finite=False)
+        residual = model.prior_kernel(labelled_inputs, inputs) - across.T @ known
+        known = np.vstack([known, scipy.linalg.solve_triangular(lower, residual, lower=True, check_finite=False)])
+    n = known.shape[1]
+    reference = np.random.default_rng(seed).choice(n, size=min(reference_size, n), replace=False)
+
+    def kernel(rows, columns):
+        return model.prior_kernel(inputs[rows], inputs[columns])
+
+    return variance_batch(kernel, model.prior_variance(inputs), known, k, noise, reference)
+
+
+#: Strategies of :func:`choose_next`: what each pick favours.
+STRATEGIES = {
+    "uncertain": "largest predicted std, spread out (farthest-point among a shortlist of the most uncertain)",
+    "spread": "farthest-point in scaled descriptor space, no model",
+    "variance": "largest drop of the summed predicted variance over the candidates (needs model 'kernel')",
+}
+
+
+def choose_next(model, candidates, k: int, shortlist_factor: float = 4.0, labelled=None, strategy: str = "uncertain",
+                reference_size: int = 1000, seed=0) -> dict[str, np.ndarray]:
     """Pick ``k`` of ``candidates`` (``ase.Atoms``) for a fitted :class:`molinv.recipes.EnergyModel`.
 
+    ``strategy`` is one of :data:`STRATEGIES`; ``shortlist_factor`` applies to 'uncertain',
+    ``reference_size`` and ``seed`` to 'variance' (see :func:`model_variance_batch`).
     Candidates the fitted descriptor cannot describe (an element or size outside
     its training set) are not picked; their reason says why. Returns
     ``{'picked': positions in pick order, 'predicted': eV, 'std': eV, 'reason': str}``
@@ -88,6 +220,8 @@ def choose_next(model, candidates, k: int, shortlist_factor: float = 4.0, labell
     from molinv.recipes import model_inputs
     from molinv.screening.table import describable
 
+    if strategy not in STRATEGIES:
+        raise LabelError(f"unknown strategy {strategy!r}; choose one of: {', '.join(STRATEGIES)}")
     check_is_fitted(model, "regressor_")
     if not model.gives_std:
         raise LabelError("choosing by uncertainty needs a model that states one (model 'kernel' or 'large')")
@@ -101,9 +235,15 @@ def choose_next(model, candidates, k: int, shortlist_factor: float = 4.0, labell
     predicted, std = np.full(len(candidates), np.nan), np.full(len(candidates), np.nan)
     predicted[usable], std[usable] = model.regressor_.predict(inputs, return_std=True)
     elements = model.descriptor_.elements_
-    known = None
+    known_inputs = None
     if labelled:
         labelled = [atoms for atoms in labelled if not describable(model.descriptor_, atoms)]
-        known = molecule_vectors(model_inputs(model.descriptor_, labelled, model.feature_store), elements)
-    picked = usable[pick_batch(std[usable], molecule_vectors(inputs, elements), k, shortlist_factor, known)]
-    return {"picked": picked, "predicted": predicted, "std": std, "reason": reasons}
+        known_inputs = model_inputs(model.descriptor_, labelled, model.feature_store) if labelled else None
+    known = None if known_inputs is None else molecule_vectors(known_inputs, elements)
+    if strategy == "variance":
+        order = model_variance_batch(model.regressor_, inputs, k, reference_size, seed, known_inputs)
+    elif strategy == "spread":
+        order = spread_batch(molecule_vectors(inputs, elements), k, known)
+    else:
+        order = pick_batch(std[usable], molecule_vectors(inputs, elements), k, shortlist_factor, known)
+    return {"picked": usable[order], "predicted": predicted, "std": std, "reason": reasons}

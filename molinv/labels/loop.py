@@ -4,8 +4,9 @@ A fixed test set is labelled first and never picked. Round 0 labels a random
 initial set; every later round fits the model on everything labelled so far,
 measures it on the test set, picks the next batch from the unlabelled pool
 (``strategy='uncertain'``: :func:`molinv.labels.choose.pick_batch`;
-``strategy='random'``: a seeded random draw, the baseline to beat), and has
-it labelled. Labels come from a callable: :class:`HiddenLabels` reveals known
+``'spread'``: :func:`molinv.labels.choose.spread_batch`; ``'variance'``:
+:func:`molinv.labels.choose.model_variance_batch`; ``'random'``: a seeded
+random draw, the baseline to beat), and has it labelled. Labels come from a callable: :class:`HiddenLabels` reveals known
 energies only when picked (simulation), :class:`ComputedLabels` computes them.
 
 The run folder holds ``loop.json`` (settings), ``labels.csv`` (one row per
@@ -30,12 +31,13 @@ from sklearn.base import clone
 from tqdm.auto import tqdm
 
 from molinv.evaluation.curves import chosen_hyperparameters, error_metrics
+from molinv.models.kernel_ridge import fixed_hyperparameters
 
-from .choose import pick_batch
+from .choose import model_variance_batch, pick_batch, spread_batch
 from .methods import LabelError, LabelMethod
 from .run import label_molecules, molecule_names, read_labels
 
-STRATEGIES = ("uncertain", "random")
+STRATEGIES = ("uncertain", "spread", "variance", "random")
 LABEL_COLUMNS = ["position", "name", "round", "energy_eV", "reason"]
 ROUND_COLUMNS = ["label", "size", "draw", "round", "mae", "rmse", "max_error", "fit_seconds", "hyperparameters"]
 
@@ -87,7 +89,9 @@ class PickLoop:
     :class:`molinv.evaluation.CurveRun`); ``vectors`` one descriptor vector per
     molecule for the diversity step; ``test`` the positions of the test set;
     ``sizes`` the number of labelled training molecules after each round (round 0
-    is the random initial set; each later round adds the difference).
+    is the random initial set; each later round adds the difference). With
+    ``tune_once`` a cross-validated regressor searches its grid on round 0 only and
+    later rounds refit with the width and regularisation it chose (cheaper refits).
     """
 
     folder: Path
@@ -101,6 +105,8 @@ class PickLoop:
     strategy: str = "uncertain"
     seed: int = 0
     shortlist_factor: float = 4.0
+    reference_size: int = 1000
+    tune_once: bool = False
 
     def __post_init__(self):
         self.folder = Path(self.folder)
@@ -122,6 +128,11 @@ class PickLoop:
         settings = {"molecules": hashlib.sha256(digest.digest()).hexdigest()[:16], "n_molecules": len(self.names),
                     "test_size": int(len(self.test)), "strategy": self.strategy, "seed": self.seed,
                     "shortlist_factor": self.shortlist_factor}
+        if self.strategy == "variance":
+            settings["reference_size"] = int(self.reference_size)
+        if self.tune_once:
+            settings["tune_once"] = True
+        self._tuned = None
         record = self.folder / "loop.json"
         if record.exists():
             stored = json.loads(record.read_text())
@@ -135,7 +146,9 @@ class PickLoop:
     @property
     def label(self) -> str:
         """The curve's name in reports: the strategy, with the shortlist size when it picks by uncertainty."""
-        return "random" if self.strategy == "random" else f"uncertain (shortlist {self.shortlist_factor:g}k)"
+        if self.strategy == "uncertain":
+            return f"uncertain (shortlist {self.shortlist_factor:g}k)"
+        return self.strategy
 
     @property
     def labels_path(self) -> Path:
@@ -163,11 +176,19 @@ class PickLoop:
                 for p, e, r in zip(positions, energies, reasons)]
         _append(self.labels_path, rows, LABEL_COLUMNS)
 
+    def _regressor(self, labelled: pd.DataFrame, round_number: int):
+        """The regressor to fit; with ``tune_once``, later rounds keep what the round-0 search chose."""
+        if not self.tune_once or round_number == 0:
+            return clone(self.regressor)
+        if self._tuned is None:
+            self._tuned = fixed_hyperparameters(self._fit(labelled, 0)[0])
+        return clone(self._tuned)
+
     def _fit(self, labelled: pd.DataFrame, round_number: int):
         rows = labelled[(labelled["round"] >= 0) & (labelled["round"] <= round_number)
                         & np.isfinite(labelled["energy_eV"])]
         train = rows["position"].to_numpy(int)
-        model = clone(self.regressor)
+        model = self._regressor(labelled, round_number)
         started = time.perf_counter()
         model.fit(self.inputs[train], rows["energy_eV"].to_numpy(float))
         return model, train, time.perf_counter() - started
@@ -182,6 +203,11 @@ class PickLoop:
         size = min(self.sizes[round_number] - self.sizes[round_number - 1], len(pool))
         if self.strategy == "random":
             return np.random.default_rng([self.seed, round_number]).choice(pool, size=size, replace=False)
+        if self.strategy == "spread":
+            return pool[spread_batch(self.vectors[pool], size, self.vectors[train])]
+        if self.strategy == "variance":
+            return pool[model_variance_batch(model, self.inputs[pool], size, self.reference_size,
+                                             [self.seed, round_number])]
         _, std = model.predict(self.inputs[pool], return_std=True)
         return pool[pick_batch(std, self.vectors[pool], size, self.shortlist_factor, self.vectors[train])]
 

@@ -242,6 +242,19 @@ class _KernelRidgeBase(BaselineMixin, RegressorMixin, BaseEstimator):
         latent = np.maximum(kernel.self_similarity(features, self.width_) - np.sum(reduced**2, axis=0), 0.0)
         return energies, self.std_scale_ * np.sqrt(latent + self.regularization_)
 
+    def prior_kernel(self, X, Y=None) -> np.ndarray:
+        """The fitted kernel (chosen width) between ``X`` and ``Y``, or the training set when ``Y`` is None:
+        the prior covariance of the Gaussian-process reading, in units of ``std_scale_**2``.
+        ``prior_kernel(X, Y=None)`` rows match the columns of ``cholesky_``."""
+        check_is_fitted(self, "dual_coef_")
+        other = self._training_features() if Y is None else self._features(Y)
+        return self._make_kernel().table(self._features(X), other, [self.width_]).matrix(0)
+
+    def prior_variance(self, X) -> np.ndarray:
+        """``k(x, x)`` for each molecule of ``X`` with the fitted width (1 for global kernels)."""
+        check_is_fitted(self, "dual_coef_")
+        return self._make_kernel().self_similarity(self._features(X), self.width_)
+
 
 class _GlobalFeatures:
     """Features: one vector per molecule, optionally standardised with training statistics."""
@@ -557,3 +570,18 @@ class AtomwiseKernelRidgeCV(_AtomFeatures, _GridSearch, _KernelRidgeBase):
         self.predictive_std = predictive_std
         self.interval_level = interval_level
         self.progress = progress
+
+
+def fixed_hyperparameters(model):
+    """An unfitted model of the fixed-hyperparameter class with the width and regularisation that the
+    fitted cross-validated ``model`` chose, its other settings kept: refits skip the search."""
+    from molinv.models.nystrom import NystromRidge, NystromRidgeCV
+
+    counterparts = {KernelRidgeCV: KernelRidgeModel, AtomwiseKernelRidgeCV: AtomwiseKernelRidge,
+                    NystromRidgeCV: NystromRidge}
+    if type(model) not in counterparts:
+        raise ModelInputError(f"{type(model).__name__} has no fixed-hyperparameter counterpart")
+    check_is_fitted(model, "width_")
+    target = counterparts[type(model)]
+    settings = {name: value for name, value in model.get_params().items() if name in target().get_params()}
+    return target(**{**settings, "width": model.width_, "regularization": model.regularization_})

@@ -7,8 +7,9 @@ together and written to ``<out>/chunks/part-NNNNNN.csv`` as soon as it finishes.
 Chunks run in this process, in local worker processes or on a Dask cluster
 (``executor``, see :mod:`molinv.cluster`); the table is the same. A restarted
 screen skips the finished chunks without building their records (no
-re-embedding), so it resumes where it stopped; the final table is assembled from
-the chunk files. Memory holds a few chunks at a time.
+re-embedding), so it resumes where it stopped; the ranked table is assembled from
+the chunk files without holding them all (:func:`~molinv.screening.ranking.write_ranking`).
+Memory holds a few chunks at a time.
 """
 
 from __future__ import annotations
@@ -19,13 +20,14 @@ from pathlib import Path
 
 import pandas as pd
 
-from molinv.cluster.chunks import ChunkError, ChunkReport, claim_folder, file_fingerprint, read_tables, run_chunks
+from molinv.cluster.chunks import ChunkError, ChunkReport, claim_folder, file_fingerprint, run_chunks
 from molinv.descriptors.store import molecules_fingerprint
 from molinv.molecules.checks import Rejected
 from molinv.molecules.packed import MoleculeChunk, packed_chunks
 from molinv.molecules.reading import iter_records
 
-from .table import CAUTION, finish_ranking, prediction_table
+from .ranking import write_ranking
+from .table import CAUTION, prediction_table
 
 
 class ScreenError(ValueError):
@@ -57,17 +59,6 @@ def predict_chunk(chunk: MoleculeChunk, model, *, unit: str, target: str) -> pd.
     molecules = [item for item in items if not isinstance(item, Rejected)]
     rejected = [item for item in items if isinstance(item, Rejected)]
     return prediction_table(model, molecules, rejected, unit=unit, target=target, rank=False)
-
-
-def predict_in_chunks(model, chunks, folder, *, unit: str = "kcal/mol", target: str = "energy", executor=None,
-                      total: int | None = None, progress: bool | None = None,
-                      description: str = "predict") -> tuple[pd.DataFrame, list[ChunkReport]]:
-    """Ranked prediction table of numbered chunks of records, each chunk written to ``folder``
-    as it finishes (see :func:`molinv.cluster.chunks.run_chunks`; ``chunks`` yields
-    ``(number, make_chunk)``). Returns the table and the reports of the chunks computed."""
-    reports = run_chunks(partial(predict_chunk, unit=unit, target=target), chunks, folder, shared=model,
-                         executor=executor, total=total, progress=progress, description=description)
-    return finish_ranking(read_tables(folder), unit=unit, target=target), reports
 
 
 def screen_file(model, path, out, *, model_fingerprint: str, target: str = "energy", unit: str = "kcal/mol",
@@ -102,20 +93,20 @@ def screen_file(model, path, out, *, model_fingerprint: str, target: str = "ener
     except ChunkError as error:
         raise ScreenError(str(error)) from None
 
-    table, computed = predict_in_chunks(model, packed_chunks(items, chunk_size), out / "chunks", unit=unit,
-                                        target=target, executor=executor, progress=progress,
-                                        description=f"screen {Path(label).name}")
-    table_path = out / "ranked.csv"
-    table.to_csv(table_path, index=False)
     if parquet:
         try:
-            table.to_parquet(out / "ranked.parquet", index=False)
+            import pyarrow  # noqa: F401  (checked before the chunks run, not after)
         except ImportError as error:
             raise ScreenError(f"Parquet output needs pyarrow: pip install 'molinv[parquet]' ({error})") from None
-    counts = table["status"].value_counts()
-    value = f"{target}_{unit}"
-    best = table[table["status"] == "ok"].head(top)[["rank", "name", "formula", value, f"std_{unit}"]]
-    summary = ScreenSummary(len(table), int(counts.get("ok", 0)), int(counts.get("flagged", 0)),
-                            int(counts.get("failed", 0)), table_path, best, computed)
+    computed = run_chunks(partial(predict_chunk, unit=unit, target=target), packed_chunks(items, chunk_size),
+                          out / "chunks", shared=model, executor=executor, progress=progress,
+                          description=f"screen {Path(label).name}")
+    table_path = out / "ranked.csv"
+    ranked = write_ranking(out / "chunks", table_path, unit=unit, target=target, top=top, progress=progress,
+                           parquet_path=out / "ranked.parquet" if parquet else None)
+    best = ranked.top.reindex(columns=["rank", "name", "formula", f"{target}_{unit}", f"std_{unit}"])
+    counts = ranked.counts
+    summary = ScreenSummary(ranked.rows, counts.get("ok", 0), counts.get("flagged", 0), counts.get("failed", 0),
+                            table_path, best, computed)
     (out / "summary.txt").write_text(summary.text(unit) + "\n")
     return summary

@@ -21,6 +21,8 @@ from molinv.descriptors.base import DescriptorError
 from molinv.molecules.checks import Rejected
 from molinv.molecules.units import convert_energy
 
+from .ranking import finish_ranking
+
 CAUTION = (
     "Predictions are statistical estimates, not a substitute for validated quantum-chemical calculations, "
     "local regulations or expert review."
@@ -83,29 +85,3 @@ def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejec
     table = table.sort_values("record", kind="stable", na_position="last").reset_index(drop=True)
     return finish_ranking(table, unit=unit, target=target) if rank else table
 
-
-def finish_ranking(table: pd.DataFrame, unit: str, target: str) -> pd.DataFrame:
-    """Flag repeated names, add per-atom and relative-to-best-isomer energies, rank by stability.
-
-    For a positive atomization energy the most stable candidate has the largest
-    value; for a total energy, the smallest. ``relative_to_best_isomer_<unit>``
-    is never negative: 0 for the most stable candidate of each formula.
-    """
-    if table.empty:
-        return table
-    table = table.copy()
-    value_column = f"{target}_{unit}"
-    repeated = table["name"].notna() & table.duplicated("name", keep="first")
-    first_record = table.groupby("name")["record"].transform("first")
-    table.loc[repeated & (table["status"] == "ok"), "status"] = "flagged"
-    # Read back from chunk files, a column of empty reasons is all NaN (float): make it text first.
-    reasons = table["reason"].fillna("").astype(str)
-    note = "name also used by record " + first_record.astype("Int64").astype(str)
-    table["reason"] = reasons.where(~repeated, reasons.where(reasons == "", reasons + "; ") + note)
-    table[f"{target}_per_atom_{unit}"] = table[value_column] / table["n_atoms"]
-    larger_is_stabler = target == "atomization_energy"
-    predicted = table[value_column].where(table["status"] != "failed")
-    best = predicted.groupby(table["formula"]).transform("max" if larger_is_stabler else "min")
-    table[f"relative_to_best_isomer_{unit}"] = (best - predicted) if larger_is_stabler else (predicted - best)
-    table["rank"] = predicted.rank(ascending=not larger_is_stabler, method="first")
-    return table.sort_values(["rank", "record"], na_position="last").reset_index(drop=True)

@@ -1,0 +1,347 @@
+"""Ranking a prediction table by stability, in memory or streamed from chunk files.
+
+The rules (:func:`finish_ranking`): a name already used by an earlier row is
+flagged, with a note naming the first record that used it; the per-atom value
+is added; ``relative_to_best_isomer_<unit>`` is the difference to the most
+stable non-failed candidate of the same formula (never negative); non-failed
+rows are ranked from the most stable (largest atomization energy, smallest total
+energy), equal values in row order; rows without a prediction have no rank and
+come last, by record.
+
+A screen's table can be longer than memory allows, so :func:`write_ranking`
+applies the same rules in three passes over its chunk files, holding one run of
+rows at a time: the first pass reads every chunk for what the rules need from
+all rows (the first record of each name, the best value of each formula, the
+column types the chunks share); the second finishes each chunk's rows and writes
+them sorted to temporary run files; the third merges the runs into the ranked
+CSV file, numbering the ranks as the rows come out. The bookkeeping of the first
+pass grows with the number of distinct names and formulas, nothing else with the
+number of rows. :func:`finish_ranking` is the same rules on one table in memory.
+"""
+
+from __future__ import annotations
+
+import csv
+import heapq
+import os
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable, Iterable, Iterator
+
+import numpy as np
+import pandas as pd
+from tqdm.auto import tqdm
+
+from molinv.cluster.chunks import iter_tables
+
+#: Sort key of a finished row, written before its fields in a run file: unranked (0 or 1),
+#: missing order value (0 or 1), order value, position of the row in the whole table.
+KEY_COLUMNS = ["unranked", "missing", "order", "position"]
+
+
+@dataclass
+class RankingBook:
+    """What the rules need to know about every row before any row is finished."""
+
+    unit: str
+    target: str
+    #: Column types of the whole table, as concatenating all chunks gives them.
+    dtypes: pd.Series | None = None
+    #: formula -> most stable predicted value.
+    best: dict = field(default_factory=dict)
+    rows: int = 0
+    #: Sorted hashes (:func:`name_hashes`) that more than one row's name has: only these names can repeat.
+    shared_hashes: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=np.int64))
+    #: name -> (number of the chunk where it first appears, first record given for it), for those names.
+    first_use: dict = field(default_factory=dict)
+
+    @property
+    def value_column(self) -> str:
+        return f"{self.target}_{self.unit}"
+
+    @property
+    def larger_is_stabler(self) -> bool:
+        return self.target == "atomization_energy"
+
+    def add(self, table: pd.DataFrame) -> np.ndarray:
+        """Take note of the types and best values of one chunk; returns its names' hashes."""
+        if self.dtypes is None:
+            self.dtypes = table.dtypes
+        else:
+            # Concatenated from new empty columns: empty text columns concatenated
+            # again and again keep one piece each (45 MiB after 300 chunks, measured).
+            empty = pd.DataFrame({name: pd.Series([], dtype=dtype) for name, dtype in self.dtypes.items()})
+            self.dtypes = pd.concat([empty, table.iloc[:0]], ignore_index=True).dtypes
+        extreme = "max" if self.larger_is_stabler else "min"
+        for formula, value in predicted(table, self.value_column).groupby(table["formula"]).agg(extreme).items():
+            known = self.best.get(formula, np.nan)
+            self.best[formula] = np.fmax(known, value) if self.larger_is_stabler else np.fmin(known, value)
+        self.rows += len(table)
+        return name_hashes(table["name"])[table["name"].notna().to_numpy()]
+
+    def may_repeat(self, names: pd.Series) -> np.ndarray:
+        return names.notna().to_numpy() & np.isin(name_hashes(names), self.shared_hashes)
+
+    def add_first_uses(self, table: pd.DataFrame, number: int) -> None:
+        """Take note of the first chunk and record of each name of chunk ``number`` that may repeat
+        (chunks in table order)."""
+        table = table[self.may_repeat(table["name"])]
+        # groupby's "first" skips missing records, as the whole table's would.
+        for name, record in table["record"].groupby(table["name"], sort=False).first().items():
+            known = self.first_use.get(name)
+            if known is None:
+                self.first_use[name] = (number, record)
+            elif pd.isna(known[1]) and not pd.isna(record):
+                self.first_use[name] = (known[0], record)
+
+
+def name_hashes(names: pd.Series) -> np.ndarray:
+    """Python's hash of each name, 0 where missing: names equal as pandas compares them
+    (``"a"``, ``7`` and ``7.0``) hash equally, so names whose hash no other row has are unique."""
+    present = names.notna().to_numpy()
+    hashes = np.zeros(len(names), dtype=np.int64)
+    hashes[present] = np.fromiter(map(hash, names[present]), dtype=np.int64, count=int(present.sum()))
+    return hashes
+
+
+def read_book(tables: Callable[[], Iterable[pd.DataFrame]], unit: str, target: str) -> RankingBook:
+    """First pass: a :class:`RankingBook` of all chunks (``tables()`` yields them in table order).
+
+    Only the names whose hash another row shares are kept (with their first record,
+    read in a second run over the chunks, skipped when there are none), so that the
+    bookkeeping for a table of unique names is eight bytes a row.
+    """
+    book = RankingBook(unit, target)
+    hashes = np.sort(np.concatenate([book.add(table) for table in tables()] or [np.empty(0, dtype=np.int64)]))
+    book.shared_hashes = np.unique(hashes[1:][hashes[1:] == hashes[:-1]])
+    if len(book.shared_hashes):
+        for number, table in enumerate(tables()):
+            book.add_first_uses(table, number)
+    return book
+
+
+def predicted(table: pd.DataFrame, value_column: str) -> pd.Series:
+    """The values that take part in the ranking: those of rows that did not fail."""
+    return table[value_column].where(table["status"] != "failed")
+
+
+def reason_text(reasons: pd.Series) -> pd.Series:
+    # Read back from chunk files, a column of empty reasons is all NaN (float): make it text first.
+    return reasons.fillna("").astype(str)
+
+
+def finish_rows(table: pd.DataFrame, book: RankingBook, number: int, start: int) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Second pass on chunk ``number``, whose first row is row ``start`` of the whole table:
+    the finished rows (all columns but the rank) and their sort keys (:data:`KEY_COLUMNS`)."""
+    table = table.astype(book.dtypes)
+    names = table["name"]
+    uses = [book.first_use[name] if may else (number, np.nan) for name, may in zip(names, book.may_repeat(names))]
+    earlier_chunk = np.array([use[0] < number for use in uses], dtype=bool)
+    repeated = names.notna() & (table.duplicated("name", keep="first") | earlier_chunk)
+    first_record = pd.Series([use[1] for use in uses], index=table.index, dtype=float)
+    table.loc[repeated & (table["status"] == "ok"), "status"] = "flagged"
+    reasons = reason_text(table["reason"])
+    note = "name also used by record " + first_record.astype("Int64").astype(str)
+    table["reason"] = reasons.where(~repeated, reasons.where(reasons == "", reasons + "; ") + note)
+    value_column, unit = book.value_column, book.unit
+    table[f"{book.target}_per_atom_{unit}"] = table[value_column] / table["n_atoms"]
+    values = predicted(table, value_column)
+    best = table["formula"].map(book.best).astype(float)
+    table[f"relative_to_best_isomer_{unit}"] = (best - values) if book.larger_is_stabler else (values - best)
+    return table, sort_keys(values, table["record"], start, book.larger_is_stabler)
+
+
+def sort_keys(values: pd.Series, records: pd.Series, start: int, larger_is_stabler: bool) -> pd.DataFrame:
+    """Ranked rows by value (most stable first), equal values in row order; then the
+    unranked rows by record, missing records last, equal records in row order."""
+    unranked = values.isna().to_numpy()
+    records = records.to_numpy(dtype=float)
+    stability = -values.to_numpy() if larger_is_stabler else values.to_numpy()
+    order = np.where(unranked, records, stability)
+    return pd.DataFrame({"unranked": unranked.astype(np.int8),
+                         "missing": (unranked & np.isnan(records)).astype(np.int8),
+                         "order": np.nan_to_num(order, nan=0.0),
+                         "position": np.arange(start, start + len(values), dtype=np.int64)})
+
+
+def sorted_rows(table: pd.DataFrame, keys: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    order = np.lexsort([keys[column].to_numpy() for column in reversed(KEY_COLUMNS)])
+    return table.iloc[order].reset_index(drop=True), keys.iloc[order].reset_index(drop=True)
+
+
+def ranks(unranked: np.ndarray) -> np.ndarray:
+    """Ranks 1, 2, ... of sorted rows; NaN for the unranked ones (which come last)."""
+    return np.where(unranked, np.nan, np.arange(1, len(unranked) + 1, dtype=float))
+
+
+def finish_ranking(table: pd.DataFrame, unit: str, target: str) -> pd.DataFrame:
+    """Flag repeated names, add per-atom and relative-to-best-isomer energies, rank by stability
+    (see the module docstring).
+
+    For a positive atomization energy the most stable candidate has the largest
+    value; for a total energy, the smallest. ``relative_to_best_isomer_<unit>``
+    is never negative: 0 for the most stable candidate of each formula.
+    """
+    if table.empty:
+        return table
+    book = read_book(lambda: [table], unit, target)
+    finished, keys = sorted_rows(*finish_rows(table, book, 0, 0))
+    finished["rank"] = ranks(keys["unranked"].to_numpy(dtype=bool))
+    return finished
+
+
+@dataclass
+class RankedFiles:
+    """What :func:`write_ranking` wrote: the number of rows, rows per status, and the
+    first ``top`` rows with status ``ok`` in ranked order (all columns)."""
+
+    rows: int
+    counts: dict[str, int]
+    top: pd.DataFrame
+
+
+def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None, top: int = 10,
+                  run_rows: int = 20_000, fan_in: int = 64, progress: bool | None = None) -> RankedFiles:
+    """Rank the chunk tables of ``folder`` (see :func:`molinv.cluster.chunks.iter_tables`) into
+    ``csv_path`` (and ``parquet_path``, row group by row group) with the rules of
+    :func:`finish_ranking`, holding at most about ``run_rows`` rows (and one chunk) at a
+    time; the CSV file has the bytes, the Parquet file the values and types, that
+    writing ``finish_ranking`` of all chunks at once gives. At most ``fan_in`` run
+    files are open at once.
+
+    Temporary run files go to a folder beside ``csv_path`` and are removed at the end.
+    """
+    folder, csv_path = Path(folder), Path(csv_path)
+    chunks = len(list(folder.glob("part-*.csv")))
+
+    def tables(description):
+        return tqdm(iter_tables(folder, text_columns=["name"]), total=chunks, desc=description, unit="chunk",
+                    disable=None if progress is None else not progress)
+
+    book = read_book(lambda: tables("rank: read"), unit, target)
+    if book.rows == 0:
+        pd.DataFrame().to_csv(csv_path, index=False)
+        return RankedFiles(0, {}, pd.DataFrame())
+    with tempfile.TemporaryDirectory(dir=csv_path.parent, prefix=".ranking-") as scratch:
+        runs = RunWriter(Path(scratch), run_rows, top)
+        start = 0
+        for number, table in enumerate(tables("rank: sort")):
+            runs.add(*finish_rows(table, book, number, start))
+            start += len(table)
+        runs.flush()
+        columns = list(runs.dtypes.index) + ["rank"]
+        partial = csv_path.with_name(f".{csv_path.name}.tmp")
+        leaders = set(runs.leader_keys["position"].tolist())
+        ranks_of = merge_runs(merge_into_runs(runs.paths, fan_in), partial, columns, leaders)
+        os.replace(partial, csv_path)
+    best = runs.leaders.assign(rank=[ranks_of[p] for p in runs.leader_keys["position"].tolist()])
+    if parquet_path is not None:
+        write_parquet(csv_path, parquet_path, runs.dtypes, run_rows)
+    return RankedFiles(book.rows, runs.counts, best)
+
+
+class RunWriter:
+    """Second pass: finished rows gathered into runs of at least ``run_rows`` rows, each
+    written sorted to a CSV file with its sort keys first; keeps the status counts and
+    the ``top`` most stable rows with status ``ok``."""
+
+    def __init__(self, folder: Path, run_rows: int, top: int):
+        self.folder, self.run_rows, self.top = folder, run_rows, top
+        self.pending: list[tuple[pd.DataFrame, pd.DataFrame]] = []
+        self.paths: list[Path] = []
+        self.counts: dict[str, int] = {}
+        self.leaders = self.leader_keys = self.dtypes = None
+
+    def add(self, rows: pd.DataFrame, keys: pd.DataFrame) -> None:
+        self.dtypes = rows.dtypes
+        for status, count in rows["status"].value_counts().items():
+            self.counts[status] = self.counts.get(status, 0) + int(count)
+        ok = (rows["status"] == "ok").to_numpy()
+        leaders = [(rows[ok], keys[ok])] + ([] if self.leaders is None else [(self.leaders, self.leader_keys)])
+        leaders, keys_of_leaders = sorted_rows(*(pd.concat(part, ignore_index=True) for part in zip(*leaders)))
+        self.leaders, self.leader_keys = leaders.head(self.top), keys_of_leaders.head(self.top)
+        self.pending.append((rows, keys))
+        if sum(len(part) for part, _ in self.pending) >= self.run_rows:
+            self.flush()
+
+    def flush(self) -> None:
+        if not self.pending:
+            return
+        rows, keys = sorted_rows(*(pd.concat(part, ignore_index=True) for part in zip(*self.pending)))
+        path = self.folder / f"run-{len(self.paths):06d}.csv"
+        pd.concat([keys, rows], axis=1).to_csv(path, header=False, index=False)
+        self.paths.append(path)
+        self.pending = []
+
+
+def run_records(path: Path) -> Iterator[tuple[tuple, list[str]]]:
+    """(sort key, fields as written, the key's first) of each row of a run file, in order."""
+    with open(path, newline="") as handle:
+        for fields in csv.reader(handle):
+            yield (int(fields[0]), int(fields[1]), float(fields[2]), int(fields[3])), fields
+
+
+def merged_records(paths: list[Path]) -> Iterator[tuple[tuple, list[str]]]:
+    # Keys are unique (they end with the row's position), so rows are never compared.
+    return heapq.merge(*(run_records(path) for path in paths))
+
+
+def merge_into_runs(paths: list[Path], fan_in: int) -> list[Path]:
+    """Merge groups of ``fan_in`` runs into longer runs until at most ``fan_in`` remain, so that
+    the final merge never opens more files than that."""
+    level = 0
+    while len(paths) > fan_in:
+        level, merged = level + 1, []
+        for first in range(0, len(paths), fan_in):
+            merged.append(paths[first].with_name(f"run-{level}-{len(merged):06d}.csv"))
+            with open(merged[-1], "w", newline="") as handle:
+                csv.writer(handle).writerows(fields for _, fields in merged_records(paths[first:first + fan_in]))
+            for path in paths[first:first + fan_in]:
+                path.unlink()
+        paths = merged
+    return paths
+
+
+def merge_runs(paths: list[Path], csv_path: Path, columns: list[str], wanted: set[int]) -> dict[int, float]:
+    """Third pass: merge sorted runs into one CSV file (written as pandas writes one), numbering
+    the ranks on the way; returns the rank of each row whose position is in ``wanted``."""
+    found, rank = {}, 0
+    with open(csv_path, "w", newline="") as handle:
+        # pandas writes CSV with the csv module's default dialect and the platform's line end.
+        writer = csv.writer(handle, lineterminator=os.linesep)
+        writer.writerow(columns)
+        for (unranked, _, _, position), fields in merged_records(paths):
+            rank += not unranked
+            text = "" if unranked else str(np.float64(rank))
+            if position in wanted:
+                found[position] = np.nan if unranked else float(rank)
+            writer.writerow(fields[len(KEY_COLUMNS):] + [text])
+    return found
+
+
+def write_parquet(csv_path: Path, parquet_path, dtypes: pd.Series, batch_rows: int) -> None:
+    """The ranked CSV file as Parquet, one row group per ``batch_rows`` rows; every column as
+    typed in the table (text read as text, so that names like '007' stay as they are)."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    dtypes = pd.concat([dtypes, pd.Series({"rank": np.dtype(float)})])
+    text = {name: str for name, dtype in dtypes.items() if not pd.api.types.is_numeric_dtype(dtype)}
+    writer = None
+    try:
+        for batch in pd.read_csv(csv_path, chunksize=batch_rows, keep_default_na=False, na_values=[""],
+                                 dtype={**dtypes.to_dict(), **text}):
+            batch = batch.astype(dtypes)
+            batch["reason"] = reason_text(batch["reason"])
+            if writer is None:
+                schema = pa.Schema.from_pandas(batch, preserve_index=False)
+                # A text column empty in the first batch would otherwise be typed null.
+                for index, column in enumerate(schema):
+                    if pa.types.is_null(column.type):
+                        schema = schema.set(index, column.with_type(pa.string()))
+                writer = pq.ParquetWriter(parquet_path, schema)
+            writer.write_table(pa.Table.from_pandas(batch, schema=writer.schema, preserve_index=False))
+    finally:
+        if writer is not None:
+            writer.close()
