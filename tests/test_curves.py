@@ -112,3 +112,13 @@ def test_report_files(tmp_path, counts_and_energies):
     assert set(summary["label"]) == {"element counts", "H and C counts only"}
     expected = summarize(run.points(), "kcal/mol")
     np.testing.assert_allclose(summary["mae_mean"], expected["mae_mean"])
+
+
+def test_power_law_on_two_points_has_no_error_estimate():
+    # Two (size, MAE) points fix the line exactly; scipy's linregress reports stderr 0 there,
+    # which would read as a perfectly known slope, so the fit says "unknown" (NaN) instead.
+    points = pd.DataFrame({"size": [50000, 100000], "mae": [0.14, 0.13]})
+    fit = fit_power_law(points)
+    assert fit.slope == pytest.approx(stats.linregress(np.log([50000, 100000]), np.log([0.14, 0.13])).slope, rel=1e-10)
+    assert np.isnan(fit.slope_std)
+    assert all(np.isnan(fit.size_range_for(0.05)))

@@ -202,7 +202,7 @@ class PowerLaw:
     """log MAE = intercept + slope * log N, fitted by least squares on every draw."""
 
     slope: float
-    slope_std: float
+    slope_std: float  # NaN when fitted on two points only
     intercept: float
     sizes_used: tuple[int, ...]
 
@@ -216,7 +216,10 @@ class PowerLaw:
         return math.exp((math.log(target_mae) - self.intercept) / self.slope)
 
     def size_range_for(self, target_mae: float) -> tuple[float, float]:
-        """The same size for slope -/+ one standard error: how uncertain the extrapolation is."""
+        """The same size for slope -/+ one standard error: how uncertain the extrapolation is
+        (NaN, NaN when the fit has no error estimate)."""
+        if math.isnan(self.slope_std):
+            return (math.nan, math.nan)
         sizes = []
         for slope in (self.slope - self.slope_std, self.slope + self.slope_std):
             # Pivot at the geometric centre of the fitted sizes, where the fit is best determined.
@@ -240,7 +243,10 @@ def fit_power_law(points: pd.DataFrame, largest_sizes: int = 4) -> PowerLaw:
     design = np.column_stack([np.ones_like(x), x])
     coefficients, *_ = np.linalg.lstsq(design, y, rcond=None)
     residuals = y - design @ coefficients
-    dof = max(len(x) - 2, 1)
-    covariance = np.linalg.inv(design.T @ design) * float(residuals @ residuals) / dof
-    return PowerLaw(float(coefficients[1]), float(math.sqrt(covariance[1, 1])), float(coefficients[0]),
-                    tuple(int(s) for s in sizes))
+    if len(x) <= 2:
+        # A line through two points has no residual left to estimate its error from.
+        slope_std = math.nan
+    else:
+        covariance = np.linalg.inv(design.T @ design) * float(residuals @ residuals) / (len(x) - 2)
+        slope_std = math.sqrt(covariance[1, 1])
+    return PowerLaw(float(coefficients[1]), float(slope_std), float(coefficients[0]), tuple(int(s) for s in sizes))

@@ -126,12 +126,15 @@ def write_report(
             continue
         fit = fit_power_law(label_points)
         fits[label] = fit
-        row = {"model": label, "slope": f"{fit.slope:.3f} ± {fit.slope_std:.3f}",
+        known_error = not math.isnan(fit.slope_std)
+        row = {"model": label,
+               "slope": f"{fit.slope:.3f} ± {fit.slope_std:.3f}" if known_error else f"{fit.slope:.3f} (two points, no error)",
                "fitted sizes": ", ".join(map(str, fit.sizes_used))}
         if target is not None:
             needed = fit.size_for(convert_energy(target, unit, "eV"))
             low, high = fit.size_range_for(convert_energy(target, unit, "eV"))
-            row[f"N for {target:g} {unit}"] = _size_text(needed) + f" (range {_size_text(low)} to {_size_text(high)})"
+            spread = f" (range {_size_text(low)} to {_size_text(high)})" if known_error else " (range unknown)"
+            row[f"N for {target:g} {unit}"] = _size_text(needed) + spread
         rows.append(row)
     plot_learning_curves(summary, fits, unit, target, folder / "learning_curve.png")
 

@@ -1,14 +1,21 @@
 #!/usr/bin/env bash
-# Reference-descriptor curves (issue 5): exact kernel ridge ladder, extra draws at small sizes, then Nystrom.
-cd /work/wt/refcurves
-export OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 MKL_NUM_THREADS=1 PYTHONPATH=/work/wt/refcurves
-PY="nice -n 19 /work/main/.venv/bin/python"
-COMMON="--test-size 10000 --seed 0 --jobs 1 --cache /work/main/benchmarks/results/feature_cache --out /work/runs/refcurves --target 1.0 --descriptor bonds --descriptor coulomb-sorted --descriptor coulomb --descriptor density"
-log() { echo "# $(date -u +%H:%M:%S) UTC $*, load $(cut -d' ' -f1-3 /proc/loadavg)" >> /work/runs/refcurves/steps.log; }
-log "step 1 start: molinv curve qm9::0 $COMMON --draws 1 --model kernel --sizes 100 200 500 1000 2000 5000 10000 20000"
-$PY -m molinv.cli curve qm9::0 $COMMON --draws 1 --model kernel --sizes 100 200 500 1000 2000 5000 10000 20000 || exit 1
-log "step 2 start: extra draws at small sizes (--draws 3 --sizes 100 200 500 1000 2000)"
-$PY -m molinv.cli curve qm9::0 $COMMON --draws 3 --model kernel --sizes 100 200 500 1000 2000 || exit 1
-log "step 3 start: python benchmarks/bench_learning_curves.py --descriptors bonds coulomb-sorted coulomb density --sizes 100 200 500 1000 2000 5000 10000 20000 --large-sizes 50000 100000 --test-size 10000 --draws 1 --seed 0 --jobs 1 --out /work/runs/refcurves --cache /work/main/benchmarks/results/feature_cache"
-$PY benchmarks/bench_learning_curves.py --descriptors bonds coulomb-sorted coulomb density --sizes 100 200 500 1000 2000 5000 10000 20000 --large-sizes 50000 100000 --test-size 10000 --draws 1 --seed 0 --jobs 1 --out /work/runs/refcurves --cache /work/main/benchmarks/results/feature_cache || exit 1
-log "all done"
+# Reference-descriptor curves (issue 5) as they were run: resumable steps, single-threaded BLAS,
+# the feature cache shared with the atoms run. Rerunning any step resumes from its finished points.
+# Points of runs/reference and runs/reference_b are combined with those of the atoms run by
+# benchmarks/combine_curves.py into benchmarks/results/qm9_curves_all/.
+export OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 MKL_NUM_THREADS=1
+COMMON="--test-size 10000 --seed 0 --jobs 1 --cache benchmarks/results/feature_cache --target 1.0"
+# 1. exact kernel ridge ladder, one draw per size
+python -m molinv.cli curve qm9::0 $COMMON --out runs/reference --descriptor bonds --descriptor coulomb-sorted \
+    --descriptor coulomb --descriptor density --draws 1 --model kernel --sizes 100 200 500 1000 2000 5000 10000 20000
+# 2. Nystrom points; a second process took density and coulomb to use the second core
+python -m molinv.cli curve qm9::0 $COMMON --out runs/reference --descriptor bonds --descriptor coulomb-sorted \
+    --draws 1 --model large --sizes 50000 100000 &
+python -m molinv.cli curve qm9::0 $COMMON --out runs/reference_b --descriptor density --descriptor coulomb \
+    --draws 1 --model large --sizes 50000 100000
+wait
+# 3. two more draws at the small sizes
+python -m molinv.cli curve qm9::0 $COMMON --out runs/reference --descriptor bonds --descriptor coulomb-sorted \
+    --descriptor coulomb --descriptor density --draws 3 --model kernel --sizes 100 200 500 1000 2000
+python benchmarks/combine_curves.py --runs benchmarks/results/qm9_curves_atoms/run runs/reference/run \
+    runs/reference_b/run --out benchmarks/results/qm9_curves_all
