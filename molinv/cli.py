@@ -139,6 +139,10 @@ def add_recipe_options(parser, several: bool = False) -> None:
                         help="for 'atoms' only: keep N principal directions per element of each atom's vector "
                              "(fitted on the molecules, no labels) instead of all 2,325 entries; makes tens of "
                              "thousands of molecules fit in memory and the kernels faster (default: keep all)")
+    parser.add_argument("--landmarks", type=int, default=None, metavar="N",
+                        help="for the 'large' model only: landmarks of the Nystrom approximation (atoms per "
+                             "element for 'atoms', molecules otherwise; default 2,500 and 4,000). More landmarks "
+                             "lower the error at large training sets and cost about N^3 per factorisation")
 
 
 CLUSTER_HELP = ("run the chunks on Dask: 'local' (a local cluster, one worker per core), a scheduler address "
@@ -178,7 +182,8 @@ def energy_model(descriptor_name: str, model_name: str, args):
 
     overrides = descriptor_overrides(descriptor_name, args)
     descriptor = make_descriptor(descriptor_name, n_jobs=args.jobs, progress=True, **overrides)
-    regressor = make_regressor(model_name, descriptor.per_atom, progress=True, descriptor=descriptor_name)
+    regressor = make_regressor(model_name, descriptor.per_atom, progress=True, descriptor=descriptor_name,
+                               landmarks=getattr(args, "landmarks", None))
     return EnergyModel(descriptor, regressor, feature_store(args))
 
 

@@ -114,9 +114,11 @@ def make_descriptor(name: str, **overrides) -> MoleculeDescriptor:
     return descriptor_class(**{**params, **overrides})
 
 
-def make_regressor(name: str, per_atom: bool, progress: bool | None = None, descriptor: str | None = None):
+def make_regressor(name: str, per_atom: bool, progress: bool | None = None, descriptor: str | None = None,
+                   landmarks: int | None = None):
     """The regressor of model ``name``; for a global descriptor, ``descriptor`` (its name) picks
-    the kernel and feature scaling (:data:`GLOBAL_KERNEL_CHOICE`)."""
+    the kernel and feature scaling (:data:`GLOBAL_KERNEL_CHOICE`). ``landmarks`` replaces the
+    'large' model's default (:data:`LARGE_LANDMARKS`)."""
     from molinv import models
 
     kernel, scale = GLOBAL_KERNEL_CHOICE.get(descriptor, DEFAULT_GLOBAL_KERNEL)
@@ -135,10 +137,11 @@ def make_regressor(name: str, per_atom: bool, progress: bool | None = None, desc
         if per_atom:
             return models.NystromRidgeCV("atomwise", widths=LARGE_ATOM_WIDTHS,
                                          regularizations=LARGE_ATOM_REGULARIZATIONS,
-                                         n_landmarks=LARGE_LANDMARKS["atoms"], search_size=LARGE_SEARCH_SIZE,
+                                         n_landmarks=landmarks or LARGE_LANDMARKS["atoms"],
+                                         search_size=LARGE_SEARCH_SIZE,
                                          progress=progress)
         return models.NystromRidgeCV(kernel, widths=GLOBAL_WIDTHS, regularizations=GLOBAL_REGULARIZATIONS,
-                                     scale=scale, n_landmarks=LARGE_LANDMARKS["molecules"],
+                                     scale=scale, n_landmarks=landmarks or LARGE_LANDMARKS["molecules"],
                                      search_size=LARGE_SEARCH_SIZE, progress=progress)
     raise RecipeError(f"unknown model {name!r}; choose one of: {', '.join(MODELS)}")
 

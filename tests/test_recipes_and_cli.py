@@ -107,3 +107,14 @@ def test_global_recipes_take_the_kernel_chosen_per_descriptor():
         for model in ("kernel", "large"):
             params = make_regressor(model, per_atom=False, descriptor=name).get_params()
             assert (params["kernel"], params["scale"]) == choice, (name, model)
+
+
+def test_landmarks_option_reaches_the_nystrom_model(tmp_path):
+    # QM9 sample (Ramakrishnan et al., Sci. Data 1, 140022, 2014); the check is the plumbing:
+    # the fitted model keeps exactly the number of landmark molecules asked for.
+    model_path = tmp_path / "model.npz"
+    assert main(["fit", "qm9:80:3", "--descriptor", "coulomb", "--model", "large", "--landmarks", "17",
+                 "--out", str(model_path)]) == 0
+    model, _ = EnergyModel.load(model_path)
+    assert model.regressor_.n_landmarks == 17
+    assert len(model.regressor_.landmarks_) == 17
