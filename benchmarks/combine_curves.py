@@ -18,6 +18,7 @@ import json
 import shutil
 from pathlib import Path
 
+from molinv.cli import parse_qm9_source
 from molinv.evaluation import CurveRun, write_report
 from molinv.molecules.qm9 import CITATION, load_qm9
 
@@ -26,14 +27,16 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--runs", nargs="+", type=Path, required=True, help="run folders (each with run.json)")
     parser.add_argument("--out", type=Path, required=True)
-    parser.add_argument("--qm9", default="qm9::0", help="the QM9 source the runs used (qm9:N:SEED, or qm9::SEED)")
+    parser.add_argument("--qm9", default="qm9::0", help="the QM9 source the runs used (qm9:N:SEED, or qm9::SEED for all of QM9)")
     parser.add_argument("--target", type=float, default=1.0, help="accuracy wanted, kcal/mol")
     args = parser.parse_args()
     settings = [json.loads((run / "run.json").read_text()) for run in args.runs]
     if any(s != settings[0] for s in settings[1:]):
         raise SystemExit("the runs hold different data or test sets: " + "; ".join(map(str, settings)))
-    _, n, seed = (args.qm9.split(":") + ["", "0"])[:3]
-    molecules = load_qm9(n=int(n) if n else None, seed=int(seed or 0))
+    source = parse_qm9_source(args.qm9)
+    if source is None:
+        raise SystemExit(f"--qm9 {args.qm9!r}: write qm9, qm9:N or qm9:N:SEED")
+    molecules = load_qm9(n=source[0], seed=source[1])
     energies = [atoms.info["atomization_energy"] for atoms in molecules]
     combined = args.out / "run"
     for run in args.runs:

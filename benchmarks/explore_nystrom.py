@@ -25,10 +25,9 @@ import numpy as np
 
 from molinv.descriptors.store import FeatureStore
 from molinv.evaluation.curves import test_split, training_draw
-from molinv.models import NystromRidgeCV
 from molinv.molecules.qm9 import load_qm9
 from molinv.molecules.units import convert_energy
-from molinv.recipes import DEFAULT_GLOBAL_KERNEL, GLOBAL_KERNEL_CHOICE, make_descriptor, model_inputs
+from molinv.recipes import make_descriptor, make_regressor, model_inputs
 
 
 def main() -> None:
@@ -47,15 +46,15 @@ def main() -> None:
     energies = np.array([atoms.info["atomization_energy"] for atoms in molecules])
     overrides = {"n_components": args.components} if args.descriptor == "atoms" else {}
     descriptor = make_descriptor(args.descriptor, n_jobs=args.jobs, progress=True, **overrides).fit(molecules)
-    kernel, scale = ("atomwise", False) if descriptor.per_atom else \
-        GLOBAL_KERNEL_CHOICE.get(args.descriptor, DEFAULT_GLOBAL_KERNEL)
     inputs = model_inputs(descriptor, molecules, FeatureStore(args.cache))
     test, pool = test_split(len(energies), args.test_size, 0)
     train = training_draw(pool, args.size, 0, 0)
     for variant in json.loads(args.variants):
-        model = NystromRidgeCV(kernel, widths=variant["widths"], regularizations=variant["regs"], scale=scale,
-                               n_landmarks=variant["landmarks"], search_size=variant.get("search_size"),
-                               predictive_std=False, progress=False)
+        # The 'large' recipe (kernel and scaling per descriptor) with this variant's grid and landmarks.
+        model = make_regressor("large", descriptor.per_atom, progress=False, descriptor=args.descriptor,
+                               landmarks=variant["landmarks"])
+        model.set_params(widths=variant["widths"], regularizations=variant["regs"],
+                         search_size=variant.get("search_size"), predictive_std=False)
         wall, cpu = time.perf_counter(), time.process_time()
         model.fit(inputs[train], energies[train])
         wall, cpu = time.perf_counter() - wall, time.process_time() - cpu

@@ -134,15 +134,15 @@ def make_regressor(name: str, per_atom: bool, progress: bool | None = None, desc
     if name == "baseline":
         return models.ElementBaseline()
     if name == "large":
+        if landmarks is None:
+            landmarks = LARGE_LANDMARKS["atoms" if per_atom else "molecules"]
         if per_atom:
             return models.NystromRidgeCV("atomwise", widths=LARGE_ATOM_WIDTHS,
-                                         regularizations=LARGE_ATOM_REGULARIZATIONS,
-                                         n_landmarks=landmarks or LARGE_LANDMARKS["atoms"],
-                                         search_size=LARGE_SEARCH_SIZE,
-                                         progress=progress)
+                                         regularizations=LARGE_ATOM_REGULARIZATIONS, n_landmarks=landmarks,
+                                         search_size=LARGE_SEARCH_SIZE, progress=progress)
         return models.NystromRidgeCV(kernel, widths=GLOBAL_WIDTHS, regularizations=GLOBAL_REGULARIZATIONS,
-                                     scale=scale, n_landmarks=landmarks or LARGE_LANDMARKS["molecules"],
-                                     search_size=LARGE_SEARCH_SIZE, progress=progress)
+                                     scale=scale, n_landmarks=landmarks, search_size=LARGE_SEARCH_SIZE,
+                                     progress=progress)
     raise RecipeError(f"unknown model {name!r}; choose one of: {', '.join(MODELS)}")
 
 
