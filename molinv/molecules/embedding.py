@@ -122,4 +122,12 @@ def embed_smiles(smiles: str, seed: int = EMBED_SEED, optimize: bool = True) -> 
     atoms = atoms_from_rdkit(mol)
     atoms.info["smiles"] = smiles.strip()
     atoms.info["geometry_source"] = source
+    atoms.info.update(charge_and_multiplicity(mol))
     return atoms
+
+
+def charge_and_multiplicity(mol: Chem.Mol) -> dict[str, int]:
+    """Net charge (elementary charges) from the formal charges, and spin multiplicity 2S+1
+    from the radical electrons, all unpaired taken parallel (RDKit keeps no spin state)."""
+    unpaired = sum(atom.GetNumRadicalElectrons() for atom in mol.GetAtoms())
+    return {"charge": int(Chem.GetFormalCharge(mol)), "multiplicity": int(unpaired) + 1}
