@@ -25,6 +25,7 @@ from molinv.descriptors.store import molecules_fingerprint
 from molinv.molecules.checks import Rejected
 from molinv.molecules.packed import MoleculeChunk, packed_chunks
 from molinv.molecules.reading import iter_records
+from molinv.molecules.route import describe_route
 
 from .ranking import write_ranking
 from .table import CAUTION, prediction_table
@@ -42,11 +43,14 @@ class ScreenSummary:
     failed: int
     table_path: Path
     top: pd.DataFrame
+    #: How the model's training geometries were made, in words (see molinv.molecules.route).
+    route: str = ""
     #: Chunks computed by this call (finished ones from an earlier run are skipped).
     computed: list[ChunkReport] = field(default_factory=list)
 
     def text(self, unit: str) -> str:
         lines = [f"{self.rows} candidates: {self.ok} ok, {self.flagged} flagged, {self.failed} failed",
+                 f"model's geometry route: {self.route}",
                  f"ranked table: {self.table_path}", "most stable predicted (ok rows):"]
         lines += ["  " + line for line in self.top.to_string(index=False, float_format=lambda v: f"{v:.2f}").splitlines()]
         lines.append(f"Caution: {CAUTION}")
@@ -107,6 +111,6 @@ def screen_file(model, path, out, *, model_fingerprint: str, target: str = "ener
     best = ranked.top.reindex(columns=["rank", "name", "formula", f"{target}_{unit}", f"std_{unit}"])
     counts = ranked.counts
     summary = ScreenSummary(ranked.rows, counts.get("ok", 0), counts.get("flagged", 0), counts.get("failed", 0),
-                            table_path, best, computed)
+                            table_path, best, describe_route(model.route_), computed)
     (out / "summary.txt").write_text(summary.text(unit) + "\n")
     return summary
