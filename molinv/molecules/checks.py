@@ -21,8 +21,18 @@ MIN_DISTANCE_ANGSTROM = 0.6
 MAX_HYDROGEN_BOND_ANGSTROM = 1.6
 
 
+#: Longest reason or name kept in a report: a damaged record can carry a line of megabytes.
+MAX_MESSAGE_CHARACTERS = 300
+
+
 class MoleculeError(ValueError):
     """A molecule that fails a check; the message gives the reason."""
+
+
+def shorten(text: str, limit: int = MAX_MESSAGE_CHARACTERS) -> str:
+    """``text`` cut to ``limit`` characters, saying how much was cut."""
+    text = str(text)
+    return text if len(text) <= limit else f"{text[:limit]}... ({len(text) - limit:,} more characters)"
 
 
 @dataclass(frozen=True)
@@ -38,6 +48,11 @@ class Rejected:
     line: int | None
     name: str | None
     reason: str
+
+    def __post_init__(self):
+        object.__setattr__(self, "reason", shorten(self.reason))
+        if self.name is not None:
+            object.__setattr__(self, "name", shorten(self.name))
 
     def __str__(self) -> str:
         where = f"{self.source}: record {self.record}"
