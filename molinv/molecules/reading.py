@@ -571,6 +571,8 @@ def _csv_records(path: Path, smiles_column: str | None, name_column: str | None,
     header = next(lines, None)
     if header is None:
         return
+    if header.problem:
+        raise InputError(f"{path}: cannot read the header: {header.problem}")
     if header.text.count(",") >= MAX_CSV_COLUMNS:
         raise InputError(f"{path}: the header (line {header.number}) has {header.text.count(',') + 1:,} columns; "
                          f"at most {MAX_CSV_COLUMNS:,} are read")
