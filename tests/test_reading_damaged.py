@@ -174,3 +174,59 @@ def test_long_reasons_are_cut(tmp_path):
     path.write_text("C1" + "C" * 100_000 + " long\n")
     (bad,) = read_molecules(path).rejected
     assert len(str(bad)) < 600
+
+
+# Heavy-atom-only molecules of ase's G2 set (Curtiss et al., J. Chem. Phys. 106, 1063, 1997).
+HEAVY_ONLY = ["CO2", "CF4", "CCl4", "NCCN", "SiF4", "SiCl4", "SO2", "CS2", "N2", "F2", "Cl2"]
+
+
+@pytest.mark.parametrize("formula", HEAVY_ONLY)
+def test_heavy_atom_molecules_in_bohr_are_caught(tmp_path, formula):
+    from ase.build import molecule as g2_molecule
+
+    from molinv.molecules import write_molecules
+
+    path = write_molecules(tmp_path / "bohr.xyz", [g2_molecule(formula)], length="Bohr")
+    (rejected,) = read_molecules(path, length="Angstrom").rejected
+    assert "no two atoms are bonded" in rejected.reason
+    assert "were Bohr coordinates read as Angstrom?" in rejected.reason
+    assert read_molecules(path, length="Bohr").rejected == []
+    write_molecules(tmp_path / "angstrom.xyz", [g2_molecule(formula)])
+    assert read_molecules(tmp_path / "angstrom.xyz").rejected == []
+
+
+@pytest.mark.parametrize("shift", [1e6, 1e12, 1e300])
+def test_huge_coordinates_are_refused(tmp_path, shift):
+    lines = WATER.splitlines()
+    path = tmp_path / "far.xyz"
+    path.write_text(f"3\nshifted\n{lines[0]}\n{lines[1]}\n{lines[2]}\n"  # record 1 good
+                    f"3\nfar atom\n{lines[0]}\n{lines[1]}\nO {shift} 0 0\n"
+                    f"3\nfar molecule\n" + "".join(f"{line.split()[0]} {shift} {' '.join(line.split()[2:])}\n"
+                                                   for line in lines))
+    result = read_molecules(path)
+    assert names(result) == ["shifted"]
+    reasons = {r.record: r.reason for r in result.rejected}
+    assert set(reasons) == {2, 3}
+    assert all("coordinate" in reason and "Angstrom" in reason for reason in reasons.values())
+
+
+def test_separate_groups_of_atoms_are_not_one_molecule(tmp_path):
+    lines = WATER.splitlines()
+    moved = [f"{line.split()[0]} {float(line.split()[1]) + 50} {' '.join(line.split()[2:])}" for line in lines]
+    path = tmp_path / "apart.xyz"
+    path.write_text("6\ntwo waters 50 Angstrom apart\n" + "\n".join(lines + moved) + "\n"
+                    "6\nwater dimer\nO -1.551 -0.115 0\nH -1.934 0.763 0\nH -0.600 0.041 0\n"
+                    "O 1.351 0.111 0\nH 1.680 -0.374 -0.759\nH 1.680 -0.374 0.759\n")
+    result = read_molecules(path)
+    assert names(result) == ["water dimer"]  # hydrogen-bonded dimer (O-O 2.9 Angstrom) is one record
+    (apart,) = result.rejected
+    assert "2 groups" in apart.reason
+
+
+@pytest.mark.parametrize(("suffix", "text"), [("xyz", "3\ndummy\nX 0 0 0\nH 0 0.76 -0.47\nH 0 -0.76 -0.47\n"),
+                                              ("smi", "C* dummy\n")])
+def test_dummy_atoms_are_refused(tmp_path, suffix, text):
+    path = tmp_path / f"dummy.{suffix}"
+    path.write_text(text)
+    (rejected,) = read_molecules(path).rejected
+    assert "dummy atom" in rejected.reason
