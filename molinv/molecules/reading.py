@@ -26,6 +26,7 @@ import numpy as np
 from ase import Atoms
 from ase.data import atomic_numbers
 from ase.io import read as ase_read
+from ase.io.extxyz import key_val_str_to_dict, parse_properties
 from rdkit import Chem
 from tqdm.auto import tqdm
 
@@ -331,8 +332,9 @@ def _atom_count(text: str) -> int | None:
 
 
 def _is_atom_line(text: str) -> bool:
-    """An element and three coordinates at least (extended XYZ may add columns)."""
-    return len(text.split(None, 3)) == 4
+    """An element and three numbers (extended XYZ may add columns)."""
+    fields = text.split(None, 4)
+    return len(fields) >= 4 and all(_as_number(value) is not None for value in fields[1:4])
 
 
 def _next_count_line(texts: Sequence[str], position: int) -> int:
@@ -405,7 +407,7 @@ def _xyz_builder(frame: list[str], comment: str, first_line: int):
         try:
             atoms = ase_read(io.StringIO(text), format="extxyz" if "=" in comment else "xyz")
         except Exception as error:  # ase raises many exception types for malformed frames
-            raise MoleculeError(_bad_atom_line(frame, first_line) or (
+            raise MoleculeError(_frame_problem(frame, comment, first_line) or (
                 f"cannot parse the frame (lines {first_line}-{first_line + len(frame) - 1}): "
                 f"{type(error).__name__}: {error}")) from None
         if "=" not in comment and comment.strip():
@@ -415,16 +417,19 @@ def _xyz_builder(frame: list[str], comment: str, first_line: int):
     return build
 
 
-def _bad_atom_line(frame: list[str], first_line: int) -> str | None:
-    """Where and why an atom line of a frame that ase refused is wrong: an unknown element
-    or a coordinate that is not a number."""
+def _frame_problem(frame: list[str], comment: str, first_line: int) -> str | None:
+    """Where and why a frame that ase refused is wrong: an extended-XYZ comment line that is
+    not key=value pairs, or an unknown element."""
+    if "=" in comment:
+        try:
+            parse_properties(str(key_val_str_to_dict(comment).get("Properties", "species:S:1:pos:R:3")))
+        except Exception:  # noqa: BLE001  ase's parser raises several types; the line is what matters
+            return (f"line {first_line + 1}: the extended-XYZ comment line is not key=value pairs with a valid "
+                    f"Properties column list: {_quoted(comment)}")
     for offset, text in enumerate(frame[2:], start=2):
-        symbol, *coordinates = text.split()[:4]
+        symbol = text.split(None, 1)[0]
         if not (symbol.isdigit() or symbol.lower().capitalize() in atomic_numbers):
             return f"line {first_line + offset}: unknown element symbol {_quoted(symbol)}"
-        for value in coordinates:
-            if _as_number(value) is None:
-                return f"line {first_line + offset}: coordinate {_quoted(value)} is not a number"
     return None
 
 
