@@ -19,7 +19,6 @@ from __future__ import annotations
 import hashlib
 import json
 import platform
-import zipfile
 from pathlib import Path
 
 import numpy as np
@@ -185,7 +184,13 @@ def _read(path):
     if not path.is_file():
         raise ModelFileError(path, "no such file")
     try:
-        with np.load(path, allow_pickle=False) as archive:
+        archive = np.load(path, allow_pickle=False)
+    except Exception as error:  # noqa: BLE001  a damaged zip raises many types (NotImplementedError too)
+        raise ModelFileError(path, f"unreadable or truncated ({_one_line(error)})") from error
+    if not isinstance(archive, np.lib.npyio.NpzFile):
+        raise ModelFileError(path, "not a molinv model file (a single array, not an .npz archive)")
+    try:
+        with archive:
             names = set(archive.files)
             if HEADER_MEMBER not in names:
                 raise ModelFileError(path, "not a molinv model file (no header)")
@@ -194,8 +199,8 @@ def _read(path):
             extras = {n[len(EXTRA_PREFIX) :]: archive[n] for n in names if n.startswith(EXTRA_PREFIX)}
     except ModelFileError:
         raise
-    except (zipfile.BadZipFile, EOFError, OSError, ValueError, KeyError, UnicodeDecodeError) as error:
-        raise ModelFileError(path, f"unreadable or truncated ({type(error).__name__}: {error})") from error
+    except Exception as error:  # noqa: BLE001  as above: any failure to read a member is damage
+        raise ModelFileError(path, f"unreadable or truncated ({_one_line(error)})") from error
     if not isinstance(header, dict) or header.get("format") != FORMAT_NAME:
         raise ModelFileError(path, "not a molinv model file (wrong format name)")
     if header.get("format_version") != FORMAT_VERSION:
@@ -216,6 +221,10 @@ def _read(path):
     if set(expected_extra) != set(extras) or any(fingerprint(a) != expected_extra[n] for n, a in extras.items()):
         raise ModelFileError(path, "extra arrays missing, unexpected or edited (SHA-256 mismatch)")
     return header, arrays, extras
+
+
+def _one_line(error: Exception) -> str:
+    return " ".join(f"{type(error).__name__}: {error}".split())[:300]
 
 
 def load_model(path):
