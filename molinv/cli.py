@@ -288,7 +288,7 @@ def run_curve(args) -> int:
         label = f"{descriptor_name} + {model_name}"
         recorded[f"{label}: descriptor"] = json.dumps(model.descriptor.settings()["params"])
         recorded[f"{label}: model"] = json.dumps(model.regressor.get_params(), default=str)
-        run.run(inputs, model.regressor, label, progress=True)
+        run.run(inputs, model.regressor, label, progress=True, settings=model.descriptor.settings())
 
     page = write_report(run, args.out, unit=args.unit, target=args.target,
                         n_atoms=[len(a) for a in molecules],

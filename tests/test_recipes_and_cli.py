@@ -100,6 +100,17 @@ def test_cli_atom_components_reach_the_model_file(tmp_path, qm9):
     assert model.descriptor_.basis_.shape[2] == 6
 
 
+def test_curve_rerun_with_other_atom_components_refuses_the_folder(tmp_path, qm9, capsys):
+    # Issue 19: the rerun reported the old full-vector points under the new settings.
+    common = ["curve", "qm9:90:5", "--descriptor", "atoms", "--model", "linear", "--sizes", "20", "40",
+              "--test-size", "30", "--draws", "1", "--out", str(tmp_path)]
+    assert main(common) == 0
+    capsys.readouterr()
+    assert main(common + ["--atom-components", "6"]) == 2
+    error = capsys.readouterr().err
+    assert "other settings" in error and "n_components" in error
+
+
 def test_global_recipes_take_the_kernel_chosen_per_descriptor():
     from molinv.recipes import DEFAULT_GLOBAL_KERNEL, GLOBAL_KERNEL_CHOICE
 
