@@ -106,8 +106,11 @@ def labelled(args):
 def write_rejected(rejected, path: Path) -> None:
     import pandas as pd
 
+    from .screening.spreadsheet import spreadsheet_safe
+
     columns = ["source", "record", "line", "name", "reason"]
-    pd.DataFrame([[getattr(r, c) for c in columns] for r in rejected], columns=columns).to_csv(path, index=False)
+    table = pd.DataFrame([[getattr(r, c) for c in columns] for r in rejected], columns=columns)
+    spreadsheet_safe(table).to_csv(path, index=False)
 
 
 def run_check(args) -> int:
@@ -249,6 +252,8 @@ def run_predict(args) -> int:
     from .recipes import EnergyModel
     from .screening import CAUTION, prediction_table
 
+    from .screening.spreadsheet import spreadsheet_safe
+
     model, metadata = EnergyModel.load(args.model_file)
     if args.cluster or args.jobs != 1:
         # Chunks beside the output, so that an interrupted prediction resumes.
@@ -257,7 +262,7 @@ def run_predict(args) -> int:
     else:
         result = read_input(args, require_energy=False)
         table = prediction_table(model, result.molecules, result.rejected, unit=args.unit, target=metadata["target"])
-    table.to_csv(args.out, index=False)
+    spreadsheet_safe(table).to_csv(args.out, index=False)
     counts = table["status"].value_counts().to_dict()
     print(f"{len(table)} rows -> {args.out}: " + ", ".join(f"{n} {s}" for s, n in counts.items()))
     print(f"Caution: {CAUTION}")
@@ -396,6 +401,7 @@ def run_pick(args) -> int:
     from .labels.choose import STRATEGIES, choose_next
     from .molecules.units import convert_energy
     from .recipes import EnergyModel
+    from .screening.spreadsheet import spreadsheet_safe
 
     model, metadata = EnergyModel.load(args.model_file)
     result = read_input(args, require_energy=False)
@@ -418,7 +424,7 @@ def run_pick(args) -> int:
         "pick_order": [order.get(i, "") for i in range(len(result.molecules))],
         "reason": choice["reason"],
     })
-    table.to_csv(args.out, index=False)
+    spreadsheet_safe(table).to_csv(args.out, index=False)
     picked = table[table["pick_order"] != ""].sort_values("pick_order").drop(columns="reason")
     print(f"picked {args.k} of {len(table)} candidates ({STRATEGIES[args.strategy]}) -> {args.out}")
     print(picked.to_string(index=False, float_format=lambda v: f"{v:.2f}"))
@@ -483,6 +489,7 @@ def run_demo(args) -> int:
     from .molecules.qm9 import CITATION, load_qm9
     from .recipes import EnergyModel, make_descriptor, make_regressor, model_inputs
     from .screening import CAUTION, prediction_table
+    from .screening.spreadsheet import spreadsheet_safe
 
     candidates_file = args.candidates
     if not candidates_file.is_file():
@@ -510,7 +517,7 @@ def run_demo(args) -> int:
     model.save(out / "model.npz", target="atomization_energy", training={"source": "QM9", "n_molecules": largest})
     read = read_molecules(candidates_file)
     table = prediction_table(model, read.molecules, read.rejected, unit="kcal/mol", target="atomization_energy")
-    table.to_csv(out / "candidates_ranked.csv", index=False)
+    spreadsheet_safe(table).to_csv(out / "candidates_ranked.csv", index=False)
     shown = ["name", "formula", "atomization_energy_kcal/mol", "std_kcal/mol",
              "atomization_energy_per_atom_kcal/mol", "relative_to_best_isomer_kcal/mol", "status"]
     print(table[shown].head(8).to_string(index=False, float_format=lambda v: f"{v:.1f}"))

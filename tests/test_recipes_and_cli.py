@@ -129,3 +129,31 @@ def test_landmarks_option_reaches_the_nystrom_model(tmp_path):
     model, _ = EnergyModel.load(model_path)
     assert model.regressor_.n_landmarks == 17
     assert len(model.regressor_.landmarks_) == 17
+
+
+def test_names_that_spreadsheets_run_as_formulas_are_neutralised(tmp_path, qm9):
+    # OWASP "CSV Injection": cells starting with = + - @ are formulas in spreadsheet programs.
+    model_path = tmp_path / "model.npz"
+    assert main(["fit", "qm9:150:3", "--descriptor", "counts", "--model", "baseline", "--out", str(model_path)]) == 0
+    candidates = tmp_path / "c.csv"
+    candidates.write_text('name,smiles\n"=HYPERLINK(""http://x.example"",""open"")",CCO\n@SUM(A1),CCC\n'
+                          "-2+3,C1CC\nethanol,CCO\n")
+    for jobs in ("1", "2"):
+        out = tmp_path / f"predicted{jobs}.csv"
+        assert main(["predict", str(model_path), str(candidates), "--out", str(out), "--jobs", jobs]) == 0
+        names = sorted(pd.read_csv(out)["name"])
+        assert names == sorted(["'=HYPERLINK(\"http://x.example\",\"open\")", "'@SUM(A1)", "'-2+3", "ethanol"])
+    rejected = tmp_path / "rejected.csv"
+    assert main(["check", str(candidates), "--rejected-out", str(rejected)]) == 0
+    assert list(pd.read_csv(rejected)["name"]) == ["'-2+3"]
+
+
+def test_parquet_keeps_names_as_they_were_read(tmp_path, qm9):
+    pytest.importorskip("pyarrow")
+    model_path = tmp_path / "model.npz"
+    assert main(["fit", "qm9:150:3", "--descriptor", "counts", "--model", "baseline", "--out", str(model_path)]) == 0
+    candidates = tmp_path / "c.smi"
+    candidates.write_text("CCO =cmd|' /C calc'!A0\nCCC propane\n")
+    assert main(["screen", str(model_path), str(candidates), "--out", str(tmp_path / "s"), "--parquet"]) == 0
+    assert sorted(pd.read_csv(tmp_path / "s" / "ranked.csv")["name"]) == ["'=cmd|' /C calc'!A0", "propane"]
+    assert sorted(pd.read_parquet(tmp_path / "s" / "ranked.parquet")["name"]) == ["=cmd|' /C calc'!A0", "propane"]

@@ -35,6 +35,8 @@ from tqdm.auto import tqdm
 
 from molinv.cluster.chunks import iter_tables
 
+from .spreadsheet import TEXT_COLUMNS, neutralised, restored
+
 #: Sort key of a finished row, written before its fields in a run file: unranked (0 or 1),
 #: missing order value (0 or 1), order value, position of the row in the whole table.
 KEY_COLUMNS = ["unranked", "missing", "order", "position"]
@@ -207,7 +209,9 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
     ``csv_path`` (and ``parquet_path``, row group by row group) with the rules of
     :func:`finish_ranking`, holding at most about ``run_rows`` rows (and one chunk) at a
     time; the CSV file has the bytes, the Parquet file the values and types, that
-    writing ``finish_ranking`` of all chunks at once gives. At most ``fan_in`` run
+    writing ``finish_ranking`` of all chunks at once gives (in the CSV file, names and
+    reasons that a spreadsheet would run as formulas start with a quote: see
+    :mod:`molinv.screening.spreadsheet`). At most ``fan_in`` run
     files are open at once.
 
     Temporary run files go to a folder beside ``csv_path`` and are removed at the end.
@@ -311,12 +315,16 @@ def merge_runs(paths: list[Path], csv_path: Path, columns: list[str], wanted: se
         # pandas writes CSV with the csv module's default dialect and the platform's line end.
         writer = csv.writer(handle, lineterminator=os.linesep)
         writer.writerow(columns)
+        text_columns = [columns.index(c) for c in TEXT_COLUMNS if c in columns]
         for (unranked, _, _, position), fields in merged_records(paths):
             rank += not unranked
             text = "" if unranked else str(np.float64(rank))
             if position in wanted:
                 found[position] = np.nan if unranked else float(rank)
-            writer.writerow(fields[len(KEY_COLUMNS):] + [text])
+            row = fields[len(KEY_COLUMNS):]
+            for column in text_columns:
+                row[column] = neutralised(row[column])
+            writer.writerow(row + [text])
     return found
 
 
@@ -334,6 +342,8 @@ def write_parquet(csv_path: Path, parquet_path, dtypes: pd.Series, batch_rows: i
                                  dtype={**dtypes.to_dict(), **text}):
             batch = batch.astype(dtypes)
             batch["reason"] = reason_text(batch["reason"])
+            for column in TEXT_COLUMNS:  # Parquet is not opened by spreadsheets: the text as read
+                batch[column] = batch[column].map(restored)
             if writer is None:
                 schema = pa.Schema.from_pandas(batch, preserve_index=False)
                 # A text column empty in the first batch would otherwise be typed null.
