@@ -230,3 +230,27 @@ def test_dummy_atoms_are_refused(tmp_path, suffix, text):
     path.write_text(text)
     (rejected,) = read_molecules(path).rejected
     assert "dummy atom" in rejected.reason
+
+
+def test_work_per_record_is_bounded(tmp_path):
+    # A 3,000-atom frame (a 10 x 10 x 30 grid of carbons 1.5 Angstrom apart) and a
+    # 5,000-character SMILES are refused before any quadratic or embedding work.
+    grid = [f"C {1.5 * i} {1.5 * j} {1.5 * k}" for i in range(10) for j in range(10) for k in range(30)]
+    path = tmp_path / "big.xyz"
+    path.write_text(f"{len(grid)}\ngrid\n" + "\n".join(grid) + "\n3\nwater\n" + WATER)
+    result = read_molecules(path)
+    assert names(result) == ["water"]
+    assert "3000 atoms" in result.rejected[0].reason
+    chain = tmp_path / "chain.smi"
+    chain.write_text("C" * 5000 + " polyethylene\nO water\n")
+    began = time.perf_counter()
+    result = read_molecules(chain)
+    assert time.perf_counter() - began < 10
+    assert names(result) == ["water"] and "5000 characters" in result.rejected[0].reason
+
+
+def test_long_names_are_cut_in_reports(tmp_path):
+    path = tmp_path / "long.xyz"
+    path.write_text("3\n" + "n" * 100_000 + "\nXq 0 0 0\nH 0 0.76 -0.47\nH 0 -0.76 -0.47\n")
+    (bad,) = read_molecules(path).rejected
+    assert len(str(bad)) < 800 and "more characters" in str(bad)

@@ -22,6 +22,11 @@ MIN_DISTANCE_ANGSTROM = 0.6
 #: no source: the longest X-H bonds in neutral molecules are about 1.5 Angstrom).
 MAX_HYDROGEN_BOND_ANGSTROM = 1.6
 
+#: Most atoms in one record. molinv models small molecules (QM9's largest has 29 atoms);
+#: the checks and descriptors grow with the square of the atom count, and a bound keeps
+#: one absurd record from taking the memory of a whole run (common practice, no source).
+MAX_ATOMS = 2000
+
 #: Largest coordinate accepted, Angstrom. Far beyond any molecule: the PDB format, made
 #: for the largest biomolecules, stores at most 9999.999 (wwPDB Atomic Coordinate Entry
 #: Format 3.3, ATOM record, columns 31-54); ten times that leaves room for shifted origins.
@@ -84,7 +89,7 @@ class Rejected:
 def check_geometry(atoms: Atoms) -> None:
     """Raise :class:`MoleculeError` when the geometry cannot be a molecule.
 
-    Checks: at least one atom, no dummy atoms (Z = 0), finite coordinates no larger
+    Checks: at least one atom and at most :data:`MAX_ATOMS`, no dummy atoms (Z = 0), finite coordinates no larger
     than :data:`MAX_COORDINATE_ANGSTROM`, no two nuclei closer than
     :data:`MIN_DISTANCE_ANGSTROM`, every hydrogen bonded to something, at least one
     bond (:data:`BOND_TOLERANCE`), and no group of atoms farther than
@@ -93,6 +98,8 @@ def check_geometry(atoms: Atoms) -> None:
     """
     if len(atoms) == 0:
         raise MoleculeError("empty record: no atoms")
+    if len(atoms) > MAX_ATOMS:
+        raise MoleculeError(f"{len(atoms)} atoms, more than the {MAX_ATOMS} of the largest molecule molinv reads")
     dummies = np.flatnonzero(atoms.numbers == 0)
     if len(dummies):
         raise MoleculeError(f"atom {dummies[0] + 1} is a dummy atom (atomic number 0), not an element")

@@ -279,6 +279,9 @@ Record = tuple[int, "int | None", "str | None", "callable"]
 #: Longest line read (bytes); a longer one is cut and its record rejected, which bounds
 #: the work and memory spent on one record.
 MAX_LINE_BYTES = 1_000_000
+#: Longest SMILES embedded: embedding time grows steeply with size, and a SMILES this long
+#: already has about MAX_ATOMS atoms with its hydrogens (common practice, no source).
+MAX_SMILES_CHARACTERS = 1000
 #: Most columns read from a CSV header.
 MAX_CSV_COLUMNS = 10_000
 
@@ -537,6 +540,9 @@ class SmilesBuilder:
     properties: dict
 
     def __call__(self) -> Atoms:
+        if len(self.smiles) > MAX_SMILES_CHARACTERS:
+            raise MoleculeError(f"SMILES of {len(self.smiles)} characters, more than the {MAX_SMILES_CHARACTERS} "
+                                "of the largest molecule molinv embeds")
         atoms = embed_smiles(self.smiles, seed=self.seed)
         atoms.info.update(self.properties)
         return atoms
