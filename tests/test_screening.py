@@ -158,3 +158,15 @@ def test_predictions_that_are_not_finite_are_never_ok(qm9, small_model):
     table = prediction_table(damaged, molecules, target="atomization_energy", rank=False)
     assert set(table["status"]) == {"failed"}
     assert table["reason"].str.contains("not finite").all()
+
+
+def test_rdkit_exception_in_a_screen_chunk_fails_its_row_only(tmp_path, small_model):
+    # RDKit's UFF set-up raises "Pre-condition Violation" for this SMILES (RDKit 2026.09).
+    model, _ = small_model
+    candidates = tmp_path / "batch.smi"
+    candidates.write_text("CCO ethanol\nO=C1C=CON~CC1=O broken\nCCC propane\n")
+    summary = screen_file(model, candidates, tmp_path / "out", model_fingerprint="m", target="atomization_energy",
+                          chunk_size=3)
+    table = pd.read_csv(summary.table_path)
+    assert dict(zip(table["name"], table["status"])) == {"ethanol": "ok", "broken": "failed", "propane": "ok"}
+    assert "Pre-condition Violation" in table.loc[table["name"] == "broken", "reason"].item()
