@@ -161,3 +161,19 @@ def test_a_npy_array_given_as_model_is_refused(tmp_path):
     np.save(path, np.arange(5.0))
     with pytest.raises(ModelFileError, match="coefficients.npy.*not a molinv model file"):
         load_model(path)
+
+
+def test_a_failed_save_leaves_the_previous_file_whole(models, tmp_path, monkeypatch):
+    model, X = models[3]
+    path = save_model(tmp_path / "model.npz", model, {"round": 1})
+
+    def disk_full(handle, **arrays):
+        handle.write(b"PK\x03\x04 half a model")
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(np, "savez", disk_full)
+    with pytest.raises(OSError, match="No space left"):
+        save_model(path, model, {"round": 2})
+    monkeypatch.undo()
+    assert load_model(path)[1] == {"round": 1}
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["model.npz"]

@@ -157,3 +157,30 @@ def test_parquet_keeps_names_as_they_were_read(tmp_path, qm9):
     assert main(["screen", str(model_path), str(candidates), "--out", str(tmp_path / "s"), "--parquet"]) == 0
     assert sorted(pd.read_csv(tmp_path / "s" / "ranked.csv")["name"]) == ["'=cmd|' /C calc'!A0", "propane"]
     assert sorted(pd.read_parquet(tmp_path / "s" / "ranked.parquet")["name"]) == ["=cmd|' /C calc'!A0", "propane"]
+
+
+@pytest.mark.parametrize("verb", ["fit", "describe", "predict", "screen", "curve", "check"])
+def test_unwritable_output_is_refused_before_the_work(tmp_path, qm9, capsys, verb):
+    # A path under a plain file cannot be created, even by root (read-only folders can).
+    blocker = tmp_path / "a_file"
+    blocker.write_text("")
+    smiles = tmp_path / "c.smi"
+    smiles.write_text("CCO ethanol\nC1CC broken\n")
+    model_path = tmp_path / "model.npz"
+    if verb in ("predict", "screen"):
+        assert main(["fit", "qm9:150:3", "--descriptor", "counts", "--model", "baseline", "--out",
+                     str(model_path)]) == 0
+    arguments = {
+        "fit": ["fit", "qm9:150:3", "--descriptor", "counts", "--model", "baseline", "--out", str(blocker / "m.npz")],
+        "describe": ["describe", str(smiles), "--descriptor", "counts", "--out", str(blocker / "f.npz")],
+        "predict": ["predict", str(model_path), str(smiles), "--out", str(blocker / "p.csv")],
+        "screen": ["screen", str(model_path), str(smiles), "--out", str(blocker / "screen")],
+        "curve": ["curve", "qm9:90:5", "--descriptor", "counts", "--model", "linear", "--sizes", "20",
+                  "--test-size", "30", "--draws", "1", "--out", str(blocker / "curve")],
+        "check": ["check", str(smiles), "--rejected-out", str(blocker / "rejected.csv")],
+    }[verb]
+    capsys.readouterr()
+    assert main(arguments) == 2
+    captured = capsys.readouterr()
+    assert "cannot write to" in captured.err and "a_file" in captured.err
+    assert captured.out == ""  # refused before reading or fitting anything

@@ -30,6 +30,7 @@ from typing import Callable, Iterable, Iterator
 import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
+from molinv.outputs import written_atomically
 
 PART_PATTERN = "part-{number:06d}{suffix}"
 
@@ -74,7 +75,8 @@ def claim_folder(folder, settings: dict, record_name: str = "settings.json") -> 
     text = json.dumps(settings, indent=2, sort_keys=True)
     if record.exists() and json.loads(record.read_text()) != json.loads(text):
         raise ChunkError(f"{folder} holds the chunks of another input, model or settings; choose another folder")
-    record.write_text(text)
+    with written_atomically(record) as temporary:
+        temporary.write_text(text)
     return folder
 
 
@@ -101,13 +103,12 @@ def write_part(folder, number: int, result) -> Path:
         raise ChunkError(f"chunk {number}: a task must return a DataFrame or a dict of arrays, "
                          f"not {type(result).__name__}")
     target = part_path(folder, number, suffix)
-    partial = target.with_name(f".{target.stem}.{socket.gethostname()}.{os.getpid()}.tmp{suffix}")
-    if suffix == ".csv":
-        result.to_csv(partial, index=False)
-    else:
-        with open(partial, "wb") as handle:
-            np.savez(handle, **result)
-    os.replace(partial, target)
+    with written_atomically(target) as temporary:
+        if suffix == ".csv":
+            result.to_csv(temporary, index=False)
+        else:
+            with open(temporary, "wb") as handle:
+                np.savez(handle, **result)
     return target
 
 

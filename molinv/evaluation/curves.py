@@ -17,7 +17,6 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-import os
 import re
 import time
 from dataclasses import dataclass
@@ -30,6 +29,7 @@ from sklearn.base import clone
 from tqdm.auto import tqdm
 
 from molinv.molecules.units import convert_energy
+from molinv.outputs import written_atomically
 
 #: The default ladder of training sizes (roughly 1-2-5 per decade; common practice, no source).
 DEFAULT_SIZES = (100, 200, 500, 1000, 2000, 5000, 10000, 20000, 50000, 100000)
@@ -133,7 +133,8 @@ class CurveRun:
                     f"{folder} holds a run on other data or settings ({stored}); choose another folder"
                 )
         else:
-            record.write_text(json.dumps(settings, indent=2))
+            with written_atomically(record) as temporary:
+                temporary.write_text(json.dumps(settings, indent=2))
         return cls(folder, y, test, pool, ladder, int(n_draws), int(seed))
 
     def _label_folder(self, label: str) -> Path:
@@ -173,11 +174,11 @@ class CurveRun:
                      "fit_seconds": fit_seconds, "hyperparameters": chosen_hyperparameters(fitted)}
             path = self._point_path(label, size, draw)
             path.parent.mkdir(parents=True, exist_ok=True)
-            np.savez(path.with_suffix(".tmp.npz"), predicted=predicted)
-            os.replace(path.with_suffix(".tmp.npz"), path.with_suffix(".npz"))
+            with written_atomically(path.with_suffix(".npz")) as temporary, open(temporary, "wb") as handle:
+                np.savez(handle, predicted=predicted)
             # The .json is written last: its presence marks the point as finished.
-            path.with_suffix(".tmp").write_text(json.dumps(point))
-            os.replace(path.with_suffix(".tmp"), path.with_suffix(".json"))
+            with written_atomically(path.with_suffix(".json")) as temporary:
+                temporary.write_text(json.dumps(point))
         return self.points(label)
 
     def _claim_label(self, label: str, key: dict) -> None:
@@ -197,8 +198,8 @@ class CurveRun:
             raise CurveError(f"{folder}: points of {label!r} without a record of their settings (an older "
                              "molinv); choose another folder")
         folder.mkdir(parents=True, exist_ok=True)
-        record.with_suffix(".tmp").write_text(json.dumps(key, indent=2, sort_keys=True))
-        os.replace(record.with_suffix(".tmp"), record)
+        with written_atomically(record) as temporary:
+            temporary.write_text(json.dumps(key, indent=2, sort_keys=True))
 
     def points(self, label: str | None = None) -> pd.DataFrame:
         """Every finished point (errors in eV), optionally of one label."""

@@ -32,6 +32,7 @@ from molinv.models.inputs import fingerprint
 from molinv.models.kernel_ridge import AtomwiseKernelRidge, AtomwiseKernelRidgeCV, KernelRidgeCV, KernelRidgeModel
 from molinv.models.linear import LinearRidge
 from molinv.models.nystrom import NystromRidge, NystromRidgeCV
+from molinv.outputs import written_atomically
 
 FORMAT_NAME = "molinv-model"
 FORMAT_VERSION = 1
@@ -164,7 +165,7 @@ def save_model(path, model, metadata: dict | None = None, extra_arrays: dict | N
     members = {ARRAY_PREFIX + name: array for name, array in arrays.items()}
     members.update({EXTRA_PREFIX + name: array for name, array in extra_arrays.items()})
     members[HEADER_MEMBER] = np.frombuffer(json.dumps(header, sort_keys=True).encode(), dtype=np.uint8)
-    with open(path, "wb") as handle:
+    with written_atomically(path) as temporary, open(temporary, "wb") as handle:
         np.savez(handle, **members)
     return path
 

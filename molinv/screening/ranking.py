@@ -35,6 +35,8 @@ from tqdm.auto import tqdm
 
 from molinv.cluster.chunks import iter_tables
 
+from molinv.outputs import written_atomically
+
 from .spreadsheet import TEXT_COLUMNS, neutralised, restored
 
 #: Sort key of a finished row, written before its fields in a run file: unranked (0 or 1),
@@ -225,7 +227,8 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
 
     book = read_book(lambda: tables("rank: read"), unit, target)
     if book.rows == 0:
-        pd.DataFrame().to_csv(csv_path, index=False)
+        with written_atomically(csv_path) as temporary:
+            pd.DataFrame().to_csv(temporary, index=False)
         return RankedFiles(0, {}, pd.DataFrame())
     with tempfile.TemporaryDirectory(dir=csv_path.parent, prefix=".ranking-") as scratch:
         runs = RunWriter(Path(scratch), run_rows, top)
@@ -235,10 +238,9 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
             start += len(table)
         runs.flush()
         columns = list(runs.dtypes.index) + ["rank"]
-        partial = csv_path.with_name(f".{csv_path.name}.tmp")
         leaders = set(runs.leader_keys["position"].tolist())
-        ranks_of = merge_runs(merge_into_runs(runs.paths, fan_in), partial, columns, leaders)
-        os.replace(partial, csv_path)
+        with written_atomically(csv_path) as temporary:
+            ranks_of = merge_runs(merge_into_runs(runs.paths, fan_in), temporary, columns, leaders)
     best = runs.leaders.assign(rank=[ranks_of[p] for p in runs.leader_keys["position"].tolist()])
     if parquet_path is not None:
         write_parquet(csv_path, parquet_path, runs.dtypes, run_rows)
@@ -337,21 +339,22 @@ def write_parquet(csv_path: Path, parquet_path, dtypes: pd.Series, batch_rows: i
     dtypes = pd.concat([dtypes, pd.Series({"rank": np.dtype(float)})])
     text = {name: str for name, dtype in dtypes.items() if not pd.api.types.is_numeric_dtype(dtype)}
     writer = None
-    try:
-        for batch in pd.read_csv(csv_path, chunksize=batch_rows, keep_default_na=False, na_values=[""],
-                                 dtype={**dtypes.to_dict(), **text}):
-            batch = batch.astype(dtypes)
-            batch["reason"] = reason_text(batch["reason"])
-            for column in TEXT_COLUMNS:  # Parquet is not opened by spreadsheets: the text as read
-                batch[column] = batch[column].map(restored)
-            if writer is None:
-                schema = pa.Schema.from_pandas(batch, preserve_index=False)
-                # A text column empty in the first batch would otherwise be typed null.
-                for index, column in enumerate(schema):
-                    if pa.types.is_null(column.type):
-                        schema = schema.set(index, column.with_type(pa.string()))
-                writer = pq.ParquetWriter(parquet_path, schema)
-            writer.write_table(pa.Table.from_pandas(batch, schema=writer.schema, preserve_index=False))
-    finally:
-        if writer is not None:
-            writer.close()
+    with written_atomically(parquet_path) as temporary:
+        try:
+            for batch in pd.read_csv(csv_path, chunksize=batch_rows, keep_default_na=False, na_values=[""],
+                                     dtype={**dtypes.to_dict(), **text}):
+                batch = batch.astype(dtypes)
+                batch["reason"] = reason_text(batch["reason"])
+                for column in TEXT_COLUMNS:  # Parquet is not opened by spreadsheets: the text as read
+                    batch[column] = batch[column].map(restored)
+                if writer is None:
+                    schema = pa.Schema.from_pandas(batch, preserve_index=False)
+                    # A text column empty in the first batch would otherwise be typed null.
+                    for index, column in enumerate(schema):
+                        if pa.types.is_null(column.type):
+                            schema = schema.set(index, column.with_type(pa.string()))
+                    writer = pq.ParquetWriter(temporary, schema)
+                writer.write_table(pa.Table.from_pandas(batch, schema=writer.schema, preserve_index=False))
+        finally:
+            if writer is not None:
+                writer.close()
