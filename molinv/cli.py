@@ -163,9 +163,17 @@ def add_execution_options(parser, jobs: bool = True) -> None:
 
 
 def executor(args):
+    import warnings
+
     from .cluster import executor_for
 
-    return executor_for(args.cluster, args.jobs)
+    # Warnings from opening a cluster (an unsafe scheduler address) as one line each.
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        runner = executor_for(args.cluster, args.jobs)
+    for warning in caught:
+        print(f"molinv {args.verb}: warning: {warning.message}", file=sys.stderr)
+    return runner
 
 
 def feature_store(args):
