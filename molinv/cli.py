@@ -170,10 +170,11 @@ def executor(args):
     # Warnings from opening a cluster (an unsafe scheduler address) as one line each.
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        runner = executor_for(args.cluster, args.jobs)
-    for warning in caught:
-        print(f"molinv {args.verb}: warning: {warning.message}", file=sys.stderr)
-    return runner
+        try:
+            return executor_for(args.cluster, args.jobs)
+        finally:
+            for warning in caught:
+                print(f"molinv {args.verb}: warning: {warning.message}", file=sys.stderr)
 
 
 def feature_store(args):

@@ -43,3 +43,19 @@ class _no_warning:
     def __exit__(self, *exc):
         self.catcher.__exit__(*exc)
         assert not [w for w in self.caught if issubclass(w.category, UnsafeClusterWarning)]
+
+
+def test_cli_prints_the_warning_even_when_the_scheduler_is_unreachable(monkeypatch, tmp_path, capsys):
+    from molinv.cli import main
+
+    def unreachable(address, timeout):
+        raise OSError("no scheduler here")
+
+    monkeypatch.setattr(dask_cluster._dask(), "Client", unreachable)
+    smiles = tmp_path / "c.smi"
+    smiles.write_text("CCO ethanol\n")
+    assert main(["describe", str(smiles), "--descriptor", "counts", "--out", str(tmp_path / "f.npz"),
+                 "--cluster", "tcp://10.1.2.3:8786"]) == 2
+    error = capsys.readouterr().err.splitlines()
+    assert error[0].startswith("molinv describe: warning: the Dask scheduler tcp://10.1.2.3:8786 is reached without TLS")
+    assert "cannot reach" in error[1]
