@@ -154,6 +154,10 @@ def iter_molecules(
         yield record.build_molecule()
 
 
+#: What RDKit logs when a Ctrl-C reached it during an embedding (RDKit 2026.09).
+RDKIT_INTERRUPTED = "Interrupted, cancelling"
+
+
 @dataclass(frozen=True)
 class PendingRecord:
     """A record located in a file but not built yet.
@@ -176,6 +180,16 @@ class PendingRecord:
         return self.build.smiles if isinstance(self.build, SmilesBuilder) else None
 
     def build_molecule(self) -> Atoms | Rejected:
+        """The molecule, or the record's rejection; raises KeyboardInterrupt when Ctrl-C was
+        pressed while RDKit embedded it."""
+        with rdkit_messages() as messages:
+            built = self._build()
+        if any(RDKIT_INTERRUPTED in message for message in messages):
+            # RDKit's embedding takes SIGINT for itself: it cancels this embedding and returns.
+            raise KeyboardInterrupt
+        return built
+
+    def _build(self) -> Atoms | Rejected:
         try:
             atoms = self.build()
             _finish(atoms, self.units, self.name or f"{Path(self.source).stem}:{self.number}",
