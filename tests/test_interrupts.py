@@ -41,3 +41,29 @@ def test_ctrl_c_while_embedding_stops_the_run(tmp_path, smiles_file, delay):
     assert "interrupted" in "".join(err)
     assert time.perf_counter() - sent < 2.0
     assert not (tmp_path / "rejected.csv").exists()
+
+
+def test_killed_screen_leaves_no_worker_behind(tmp_path, qm9):
+    psutil = pytest.importorskip("psutil")
+    from molinv.cli import main
+
+    model_path = tmp_path / "model.npz"
+    assert main(["fit", "qm9:150:3", "--descriptor", "counts", "--model", "baseline", "--out", str(model_path)]) == 0
+    positions = qm9.sample(600, seed=33)
+    candidates = tmp_path / "candidates.smi"
+    candidates.write_text("".join(f"{s} q{i}\n" for i, s in zip(qm9.arrays["index"][positions],
+                                                                qm9.arrays["smiles"][positions])))
+    process = subprocess.Popen([sys.executable, "-m", "molinv.cli", "screen", str(model_path), str(candidates),
+                                "--out", str(tmp_path / "screen"), "--jobs", "2", "--chunk-size", "20"],
+                               stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.time() + 120
+    while len(list((tmp_path / "screen" / "chunks").glob("part-*.csv"))) < 2 and time.time() < deadline:
+        time.sleep(0.05)
+    workers = psutil.Process(process.pid).children(recursive=True)
+    assert workers
+    os.kill(process.pid, signal.SIGKILL)
+    process.wait()
+    gone, alive = psutil.wait_procs(workers, timeout=10)
+    for worker in alive:  # leave nothing behind, even when the check fails
+        worker.kill()
+    assert not alive, [w.pid for w in alive]

@@ -22,6 +22,7 @@ import hashlib
 import json
 import os
 import socket
+import threading
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -186,7 +187,27 @@ class LocalProcesses(InProcess):
         options = {} if self.inner_threads is None else {"backend": "loky", "inner_max_num_threads": self.inner_threads}
         # pre_dispatch bounds the chunks built ahead of the workers, so memory stays flat.
         runner = Parallel(n_jobs=self.n_jobs, return_as="generator_unordered", pre_dispatch="2*n_jobs", **options)
-        yield from runner(delayed(function)(*arguments) for arguments in calls)
+        parent = os.getpid()
+        yield from runner(delayed(run_beside_parent)(parent, function, *arguments) for arguments in calls)
+
+
+def run_beside_parent(parent: int, function: Callable, *arguments):
+    """``function(*arguments)`` in a local worker process that exits as soon as its parent
+    ``parent`` is gone: joblib's workers otherwise outlive a killed run (SIGKILL gives the
+    parent no chance to stop them) and compute on for nobody."""
+    if parent != os.getpid() and not _parent_watch:
+        _parent_watch.append(threading.Thread(target=_exit_without_parent, args=(parent,), daemon=True))
+        _parent_watch[0].start()
+    return function(*arguments)
+
+
+_parent_watch: list[threading.Thread] = []
+
+
+def _exit_without_parent(parent: int) -> None:
+    while os.getppid() == parent:
+        time.sleep(0.5)
+    os._exit(1)
 
 
 def run_chunks(task: Callable, chunks: Iterable[tuple[int, Callable[[], object]]], folder, *, shared=None,
