@@ -119,14 +119,15 @@ def iter_molecules(
 ) -> Iterator[Atoms | Rejected]:
     """Each record of a file in order, as an ``ase.Atoms`` or a :class:`Rejected`.
 
-    Records are built one at a time, so memory does not grow with the file (CSV
-    tables are read in blocks).
+    Records are built one at a time, so memory does not grow with the file (XYZ
+    files, whose framing looks ahead, are read whole as lines).
 
     Parameters
     ----------
     path : str or Path
         XYZ/extended XYZ, SDF/MOL, SMILES list (``.smi``: SMILES then an optional
-        name per line) or CSV with a SMILES column.
+        name per line) or CSV with a SMILES column (one row per line). UTF-8, with
+        or without a byte-order mark, LF or CRLF line ends.
     file_format : {'xyz', 'sdf', 'smiles', 'csv'}, optional
         Overrides the guess from the suffix.
     length : str
