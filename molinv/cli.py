@@ -11,6 +11,7 @@ import sys
 from pathlib import Path
 
 from .molecules.units import ENERGY_UNITS, LENGTH_UNITS
+from .outputs import OutputError, check_writable, written_atomically
 
 UNITS_HELP = (
     "Internal units are eV and Angstrom. Lengths in input files: "
@@ -144,8 +145,12 @@ def labelled(args):
 def write_rejected(rejected, path: Path) -> None:
     import pandas as pd
 
+    from .screening.spreadsheet import spreadsheet_safe
+
     columns = ["source", "record", "line", "name", "reason"]
-    pd.DataFrame([[getattr(r, c) for c in columns] for r in rejected], columns=columns).to_csv(path, index=False)
+    table = pd.DataFrame([[getattr(r, c) for c in columns] for r in rejected], columns=columns)
+    with written_atomically(path) as temporary:
+        spreadsheet_safe(table).to_csv(temporary, index=False)
 
 
 def run_check(args) -> int:
@@ -196,9 +201,18 @@ def add_execution_options(parser, jobs: bool = True) -> None:
 
 
 def executor(args):
+    import warnings
+
     from .cluster import executor_for
 
-    return executor_for(args.cluster, args.jobs)
+    # Warnings from opening a cluster (an unsafe scheduler address) as one line each.
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            return executor_for(args.cluster, args.jobs)
+        finally:
+            for warning in caught:
+                print(f"molinv {args.verb}: warning: {warning.message}", file=sys.stderr)
 
 
 def feature_store(args):
@@ -257,9 +271,11 @@ def run_describe(args) -> int:
         arrays.update(values=features.values, numbers=features.numbers, offsets=features.offsets)
     else:
         arrays["values"] = features
-    np.savez(args.out, **arrays)
+    out = args.out if args.out.suffix == ".npz" else args.out.with_name(args.out.name + ".npz")
+    with written_atomically(out) as temporary, open(temporary, "wb") as handle:
+        np.savez(handle, **arrays)
     print(f"{len(result.molecules)} molecules described with {args.descriptor} ({features.shape[1]} numbers each"
-          f"{' per atom' if descriptor.per_atom else ''}) -> {args.out}")
+          f"{' per atom' if descriptor.per_atom else ''}) -> {out}")
     return 0
 
 
@@ -290,6 +306,8 @@ def run_predict(args) -> int:
     from .recipes import EnergyModel
     from .screening import CAUTION, prediction_table
 
+    from .screening.spreadsheet import spreadsheet_safe
+
     model, metadata = EnergyModel.load(args.model_file)
     if args.cluster or args.jobs != 1:
         # Chunks beside the output, so that an interrupted prediction resumes.
@@ -298,7 +316,8 @@ def run_predict(args) -> int:
     else:
         result = read_input(args, require_energy=False)
         table = prediction_table(model, result.molecules, result.rejected, unit=args.unit, target=metadata["target"])
-    table.to_csv(args.out, index=False)
+    with written_atomically(args.out) as temporary:
+        spreadsheet_safe(table).to_csv(temporary, index=False)
     counts = table["status"].value_counts().to_dict()
     print(f"{len(table)} rows -> {args.out}: " + ", ".join(f"{n} {s}" for s, n in counts.items()))
     print(f"model's geometry route: {describe_route(model.route_)}")
@@ -332,7 +351,7 @@ def run_curve(args) -> int:
         label = f"{descriptor_name} + {model_name}"
         recorded[f"{label}: descriptor"] = json.dumps(model.descriptor.settings()["params"])
         recorded[f"{label}: model"] = json.dumps(model.regressor.get_params(), default=str)
-        run.run(inputs, model.regressor, label, progress=True)
+        run.run(inputs, model.regressor, label, progress=True, settings=model.descriptor.settings())
 
     page = write_report(run, args.out, unit=args.unit, target=args.target,
                         n_atoms=[len(a) for a in molecules],
@@ -441,6 +460,7 @@ def run_pick(args) -> int:
     from .labels.choose import STRATEGIES, choose_next
     from .molecules.units import convert_energy
     from .recipes import EnergyModel
+    from .screening.spreadsheet import spreadsheet_safe
 
     model, metadata = EnergyModel.load(args.model_file)
     result = read_input(args, require_energy=False)
@@ -463,7 +483,8 @@ def run_pick(args) -> int:
         "pick_order": [order.get(i, "") for i in range(len(result.molecules))],
         "reason": choice["reason"],
     })
-    table.to_csv(args.out, index=False)
+    with written_atomically(args.out) as temporary:
+        spreadsheet_safe(table).to_csv(temporary, index=False)
     picked = table[table["pick_order"] != ""].sort_values("pick_order").drop(columns="reason")
     print(f"picked {args.k} of {len(table)} candidates ({STRATEGIES[args.strategy]}) -> {args.out}")
     print(picked.to_string(index=False, float_format=lambda v: f"{v:.2f}"))
@@ -505,7 +526,8 @@ def run_pick_loop(args) -> int:
                     reference_size=args.reference, tune_once=args.tune_once)
     rounds = loop.run(progress=True)
     summary = summarize(rounds, unit=args.unit)
-    summary.to_csv(args.out / "summary.csv", index=False)
+    with written_atomically(args.out / "summary.csv") as temporary:
+        summary.to_csv(temporary, index=False)
     plot_learning_curves(summary, {}, args.unit, None, args.out / "learning_curve.png")
     shown = summary[["size", "mae_mean", "rmse_mean", "max_error_mean"]]
     shown.columns = ["labelled", f"test MAE ({args.unit})", f"RMSE ({args.unit})", f"max error ({args.unit})"]
@@ -529,6 +551,7 @@ def run_demo(args) -> int:
     from .molecules.route import onto_embedded_route
     from .recipes import EnergyModel, make_descriptor, make_regressor, model_inputs
     from .screening import CAUTION, prediction_table
+    from .screening.spreadsheet import spreadsheet_safe
 
     candidates_file = args.candidates
     if not candidates_file.is_file():
@@ -560,7 +583,8 @@ def run_demo(args) -> int:
     model.save(out / "model.npz", target="atomization_energy", training={"source": "QM9", "n_molecules": largest})
     read = read_molecules(candidates_file)
     table = prediction_table(model, read.molecules, read.rejected, unit="kcal/mol", target="atomization_energy")
-    table.to_csv(out / "candidates_ranked.csv", index=False)
+    with written_atomically(out / "candidates_ranked.csv") as temporary:
+        spreadsheet_safe(table).to_csv(temporary, index=False)
     shown = ["name", "formula", "atomization_energy_kcal/mol", "std_kcal/mol",
              "atomization_energy_per_atom_kcal/mol", "relative_to_best_isomer_kcal/mol", "status"]
     print(table[shown].head(8).to_string(index=False, float_format=lambda v: f"{v:.1f}"))
@@ -711,6 +735,18 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+#: Verbs whose --out is a folder (the others write one file there).
+FOLDER_OUTPUTS = ("screen", "curve", "pick-loop", "demo")
+
+
+def check_outputs(args) -> None:
+    """Refuse an output location that cannot be written before any work is done."""
+    if getattr(args, "out", None) is not None:
+        check_writable(args.out, folder=args.verb in FOLDER_OUTPUTS)
+    if getattr(args, "rejected_out", None) is not None:
+        check_writable(args.rejected_out)
+
+
 def main(argv=None) -> int:
     from .descriptors.base import DescriptorError
     from .evaluation import CurveError
@@ -727,9 +763,10 @@ def main(argv=None) -> int:
 
     args = build_parser().parse_args(argv)
     try:
+        check_outputs(args)
         return args.run(args)
     except (CommandError, InputError, UnitError, RecipeError, DescriptorError, ModelInputError, ModelFileError,
-            CurveError, Qm9Unavailable, ScreenError, LabelError, ChunkError, ClusterError) as error:
+            CurveError, Qm9Unavailable, ScreenError, LabelError, ChunkError, ClusterError, OutputError) as error:
         print(f"molinv {args.verb}: error: {error}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

@@ -122,3 +122,21 @@ def test_power_law_on_two_points_has_no_error_estimate():
     assert fit.slope == pytest.approx(stats.linregress(np.log([50000, 100000]), np.log([0.14, 0.13])).slope, rel=1e-10)
     assert np.isnan(fit.slope_std)
     assert all(np.isnan(fit.size_range_for(0.05)))
+
+
+def test_rerun_with_other_model_settings_never_reuses_points(tmp_path, counts_and_energies):
+    X, y, _ = counts_and_energies
+    settings = dict(test_size=500, sizes=(50, 100), n_draws=1, seed=3)
+    first = CurveRun.open(tmp_path, y, **settings).run(X, Ridge(alpha=1e-6), "ridge")
+    # Same settings: the finished points are reused as they are.
+    pd.testing.assert_frame_equal(first, CurveRun.open(tmp_path, y, **settings).run(X, Ridge(alpha=1e-6), "ridge"))
+    with pytest.raises(CurveError, match="other settings.*alpha"):
+        CurveRun.open(tmp_path, y, **settings).run(X, Ridge(alpha=10.0), "ridge")
+
+
+def test_rerun_with_other_descriptor_settings_never_reuses_points(tmp_path, counts_and_energies):
+    X, y, _ = counts_and_energies
+    settings = dict(test_size=500, sizes=(50,), n_draws=1, seed=3)
+    CurveRun.open(tmp_path, y, **settings).run(X, Ridge(alpha=1e-6), "ridge", settings={"n_components": None})
+    with pytest.raises(CurveError, match="other settings.*n_components"):  # as --atom-components 8
+        CurveRun.open(tmp_path, y, **settings).run(X[:, :2], Ridge(alpha=1e-6), "ridge", settings={"n_components": 8})

@@ -130,3 +130,50 @@ def test_extra_arrays_round_trip_and_are_checked(models, tmp_path):
         load_model(tmp_path / "extra_edited.npz")
     with pytest.raises(TypeError, match="pickle"):
         save_model(tmp_path / "objects.npz", model, {}, extra_arrays={"bad": np.array([{}], dtype=object)})
+
+
+def test_every_single_byte_flip_in_the_zip_structure_is_refused_in_one_line(models, tmp_path):
+    # Zip local headers start with PK\x03\x04 and the central directory with PK\x01\x02
+    # (PKWARE APPNOTE.TXT, sections 4.3.7 and 4.3.12): flip every byte of every such header.
+    model, X = models[3]
+    data = save_model(tmp_path / "good.npz", model, {}).read_bytes()
+    starts = [i for i in range(len(data) - 4) if data[i:i + 4] in (b"PK\x03\x04", b"PK\x01\x02")]
+    positions = sorted({p for start in starts for p in range(start, min(start + 46, len(data)))})
+    damaged = tmp_path / "damaged.npz"
+    outcomes = set()
+    for position in positions:
+        for value in (data[position] ^ 0xFF, data[position] ^ 0x01):
+            damaged.write_bytes(data[:position] + bytes([value]) + data[position + 1:])
+            try:
+                loaded, _ = load_model(damaged)
+            except ModelFileError as error:
+                assert "damaged.npz" in str(error) and "\n" not in str(error)
+                outcomes.add("refused")
+            else:
+                # A flip the format does not check (a date, an unused field): same model.
+                np.testing.assert_array_equal(loaded.predict(X), model.predict(X))
+                outcomes.add("read")
+    assert "refused" in outcomes
+
+
+def test_a_npy_array_given_as_model_is_refused(tmp_path):
+    path = tmp_path / "coefficients.npy"
+    np.save(path, np.arange(5.0))
+    with pytest.raises(ModelFileError, match="coefficients.npy.*not a molinv model file"):
+        load_model(path)
+
+
+def test_a_failed_save_leaves_the_previous_file_whole(models, tmp_path, monkeypatch):
+    model, X = models[3]
+    path = save_model(tmp_path / "model.npz", model, {"round": 1})
+
+    def disk_full(handle, **arrays):
+        handle.write(b"PK\x03\x04 half a model")
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(np, "savez", disk_full)
+    with pytest.raises(OSError, match="No space left"):
+        save_model(path, model, {"round": 2})
+    monkeypatch.undo()
+    assert load_model(path)[1] == {"round": 1}
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["model.npz"]

@@ -103,6 +103,17 @@ def test_cli_atom_components_reach_the_model_file(tmp_path, qm9):
     assert model.descriptor_.basis_.shape[2] == 6
 
 
+def test_curve_rerun_with_other_atom_components_refuses_the_folder(tmp_path, qm9, capsys):
+    # Issue 19: the rerun reported the old full-vector points under the new settings.
+    common = ["curve", "qm9:90:5", "--descriptor", "atoms", "--model", "linear", "--sizes", "20", "40",
+              "--test-size", "30", "--draws", "1", "--out", str(tmp_path)]
+    assert main(common) == 0
+    capsys.readouterr()
+    assert main(common + ["--atom-components", "6"]) == 2
+    error = capsys.readouterr().err
+    assert "other settings" in error and "n_components" in error
+
+
 def test_global_recipes_take_the_kernel_chosen_per_descriptor():
     from molinv.recipes import DEFAULT_GLOBAL_KERNEL, GLOBAL_KERNEL_CHOICE
 
@@ -121,3 +132,58 @@ def test_landmarks_option_reaches_the_nystrom_model(tmp_path):
     model, _ = EnergyModel.load(model_path)
     assert model.regressor_.n_landmarks == 17
     assert len(model.regressor_.landmarks_) == 17
+
+
+def test_names_that_spreadsheets_run_as_formulas_are_neutralised(tmp_path, qm9):
+    # OWASP "CSV Injection": cells starting with = + - @ are formulas in spreadsheet programs.
+    model_path = tmp_path / "model.npz"
+    assert main(["fit", "qm9:150:3", "--descriptor", "counts", "--model", "baseline", "--out", str(model_path)]) == 0
+    candidates = tmp_path / "c.csv"
+    candidates.write_text('name,smiles\n"=HYPERLINK(""http://x.example"",""open"")",CCO\n@SUM(A1),CCC\n'
+                          "-2+3,C1CC\nethanol,CCO\n")
+    for jobs in ("1", "2"):
+        out = tmp_path / f"predicted{jobs}.csv"
+        assert main(["predict", str(model_path), str(candidates), "--out", str(out), "--jobs", jobs]) == 0
+        names = sorted(pd.read_csv(out)["name"])
+        assert names == sorted(["'=HYPERLINK(\"http://x.example\",\"open\")", "'@SUM(A1)", "'-2+3", "ethanol"])
+    rejected = tmp_path / "rejected.csv"
+    assert main(["check", str(candidates), "--rejected-out", str(rejected)]) == 0
+    assert list(pd.read_csv(rejected)["name"]) == ["'-2+3"]
+
+
+def test_parquet_keeps_names_as_they_were_read(tmp_path, qm9):
+    pytest.importorskip("pyarrow")
+    model_path = tmp_path / "model.npz"
+    assert main(["fit", "qm9:150:3", "--descriptor", "counts", "--model", "baseline", "--out", str(model_path)]) == 0
+    candidates = tmp_path / "c.smi"
+    candidates.write_text("CCO =cmd|' /C calc'!A0\nCCC propane\n")
+    assert main(["screen", str(model_path), str(candidates), "--out", str(tmp_path / "s"), "--parquet"]) == 0
+    assert sorted(pd.read_csv(tmp_path / "s" / "ranked.csv")["name"]) == ["'=cmd|' /C calc'!A0", "propane"]
+    assert sorted(pd.read_parquet(tmp_path / "s" / "ranked.parquet")["name"]) == ["=cmd|' /C calc'!A0", "propane"]
+
+
+@pytest.mark.parametrize("verb", ["fit", "describe", "predict", "screen", "curve", "check"])
+def test_unwritable_output_is_refused_before_the_work(tmp_path, qm9, capsys, verb):
+    # A path under a plain file cannot be created, even by root (read-only folders can).
+    blocker = tmp_path / "a_file"
+    blocker.write_text("")
+    smiles = tmp_path / "c.smi"
+    smiles.write_text("CCO ethanol\nC1CC broken\n")
+    model_path = tmp_path / "model.npz"
+    if verb in ("predict", "screen"):
+        assert main(["fit", "qm9:150:3", "--descriptor", "counts", "--model", "baseline", "--out",
+                     str(model_path)]) == 0
+    arguments = {
+        "fit": ["fit", "qm9:150:3", "--descriptor", "counts", "--model", "baseline", "--out", str(blocker / "m.npz")],
+        "describe": ["describe", str(smiles), "--descriptor", "counts", "--out", str(blocker / "f.npz")],
+        "predict": ["predict", str(model_path), str(smiles), "--out", str(blocker / "p.csv")],
+        "screen": ["screen", str(model_path), str(smiles), "--out", str(blocker / "screen")],
+        "curve": ["curve", "qm9:90:5", "--descriptor", "counts", "--model", "linear", "--sizes", "20",
+                  "--test-size", "30", "--draws", "1", "--out", str(blocker / "curve")],
+        "check": ["check", str(smiles), "--rejected-out", str(blocker / "rejected.csv")],
+    }[verb]
+    capsys.readouterr()
+    assert main(arguments) == 2
+    captured = capsys.readouterr()
+    assert "cannot write to" in captured.err and "a_file" in captured.err
+    assert captured.out == ""  # refused before reading or fitting anything

@@ -3,6 +3,7 @@
 Data: QM9 (Ramakrishnan et al., Sci. Data 1, 140022, 2014) for training and as candidates.
 """
 
+import copy
 import os
 import signal
 import subprocess
@@ -119,3 +120,55 @@ def test_digit_only_names_stay_text_across_chunks(tmp_path, small_model):
     table = pd.read_csv(summary.table_path, dtype={"name": str})
     assert sorted(table["name"]) == ["007", "7"]
     assert list(table["status"]) == ["ok", "ok"]
+
+
+def far_atom_batch(qm9):
+    """Four QM9 molecules and a copy of the first with one atom moved to 1e300 Angstrom
+    (issue 19: this blocked the whole prediction)."""
+    good = qm9.molecules(qm9.sample(4, seed=41, elements=["H", "C", "N", "O"]))
+    broken = good[0].copy()
+    broken.positions[0] = [1e300, 0.586, 0.0]
+    broken.info["name"] = "far"
+    return good + [broken]
+
+
+def test_a_molecule_that_cannot_be_described_fails_alone(qm9, small_model):
+    model, _ = small_model
+    table = prediction_table(model, far_atom_batch(qm9), target="atomization_energy", rank=False)
+    status = dict(zip(table["name"], table["status"]))
+    assert status.pop("far") == "failed"
+    assert set(status.values()) <= {"ok", "flagged"} and len(status) == 4
+    (reason,) = table.loc[table["name"] == "far", "reason"]
+    assert "1e+300 Angstrom" in reason
+    assert table.loc[table["name"] != "far", "atomization_energy_kcal/mol"].notna().all()
+
+
+def test_screen_chunk_with_an_undescribable_molecule_finishes(tmp_path, qm9, small_model):
+    model, _ = small_model
+    summary = screen_file(model, far_atom_batch(qm9), tmp_path / "out", model_fingerprint="m",
+                          target="atomization_energy", chunk_size=5)
+    assert (summary.rows, summary.failed) == (5, 1)
+
+
+def test_predictions_that_are_not_finite_are_never_ok(qm9, small_model):
+    model, _ = small_model
+    damaged = EnergyModel(model.descriptor, model.regressor)
+    damaged.descriptor_, damaged.applicability_ = model.descriptor_, model.applicability_
+    damaged.regressor_ = copy.deepcopy(model.regressor_)
+    damaged.regressor_.coef_[0] = np.nan  # as in a model file edited with its checksum recomputed
+    molecules = qm9.molecules(qm9.sample(3, seed=42, elements=["H", "C", "N", "O"]))
+    table = prediction_table(damaged, molecules, target="atomization_energy", rank=False)
+    assert set(table["status"]) == {"failed"}
+    assert table["reason"].str.contains("not finite").all()
+
+
+def test_rdkit_exception_in_a_screen_chunk_fails_its_row_only(tmp_path, small_model):
+    # RDKit's UFF set-up raises "Pre-condition Violation" for this SMILES (RDKit 2026.09).
+    model, _ = small_model
+    candidates = tmp_path / "batch.smi"
+    candidates.write_text("CCO ethanol\nO=C1C=CON~CC1=O broken\nCCC propane\n")
+    summary = screen_file(model, candidates, tmp_path / "out", model_fingerprint="m", target="atomization_energy",
+                          chunk_size=3)
+    table = pd.read_csv(summary.table_path)
+    assert dict(zip(table["name"], table["status"])) == {"ethanol": "ok", "broken": "failed", "propane": "ok"}
+    assert "Pre-condition Violation" in table.loc[table["name"] == "broken", "reason"].item()

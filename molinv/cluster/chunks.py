@@ -22,6 +22,7 @@ import hashlib
 import json
 import os
 import socket
+import threading
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -30,6 +31,7 @@ from typing import Callable, Iterable, Iterator
 import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
+from molinv.outputs import written_atomically
 
 PART_PATTERN = "part-{number:06d}{suffix}"
 
@@ -74,7 +76,8 @@ def claim_folder(folder, settings: dict, record_name: str = "settings.json") -> 
     text = json.dumps(settings, indent=2, sort_keys=True)
     if record.exists() and json.loads(record.read_text()) != json.loads(text):
         raise ChunkError(f"{folder} holds the chunks of another input, model or settings; choose another folder")
-    record.write_text(text)
+    with written_atomically(record) as temporary:
+        temporary.write_text(text)
     return folder
 
 
@@ -101,13 +104,12 @@ def write_part(folder, number: int, result) -> Path:
         raise ChunkError(f"chunk {number}: a task must return a DataFrame or a dict of arrays, "
                          f"not {type(result).__name__}")
     target = part_path(folder, number, suffix)
-    partial = target.with_name(f".{target.stem}.{socket.gethostname()}.{os.getpid()}.tmp{suffix}")
-    if suffix == ".csv":
-        result.to_csv(partial, index=False)
-    else:
-        with open(partial, "wb") as handle:
-            np.savez(handle, **result)
-    os.replace(partial, target)
+    with written_atomically(target) as temporary:
+        if suffix == ".csv":
+            result.to_csv(temporary, index=False)
+        else:
+            with open(temporary, "wb") as handle:
+                np.savez(handle, **result)
     return target
 
 
@@ -185,7 +187,27 @@ class LocalProcesses(InProcess):
         options = {} if self.inner_threads is None else {"backend": "loky", "inner_max_num_threads": self.inner_threads}
         # pre_dispatch bounds the chunks built ahead of the workers, so memory stays flat.
         runner = Parallel(n_jobs=self.n_jobs, return_as="generator_unordered", pre_dispatch="2*n_jobs", **options)
-        yield from runner(delayed(function)(*arguments) for arguments in calls)
+        parent = os.getpid()
+        yield from runner(delayed(run_beside_parent)(parent, function, *arguments) for arguments in calls)
+
+
+def run_beside_parent(parent: int, function: Callable, *arguments):
+    """``function(*arguments)`` in a local worker process that exits as soon as its parent
+    ``parent`` is gone: joblib's workers otherwise outlive a killed run (SIGKILL gives the
+    parent no chance to stop them) and compute on for nobody."""
+    if parent != os.getpid() and not _parent_watch:
+        _parent_watch.append(threading.Thread(target=_exit_without_parent, args=(parent,), daemon=True))
+        _parent_watch[0].start()
+    return function(*arguments)
+
+
+_parent_watch: list[threading.Thread] = []
+
+
+def _exit_without_parent(parent: int) -> None:
+    while os.getppid() == parent:
+        time.sleep(0.5)
+    os._exit(1)
 
 
 def run_chunks(task: Callable, chunks: Iterable[tuple[int, Callable[[], object]]], folder, *, shared=None,

@@ -8,9 +8,12 @@ Where the cluster comes from (:func:`open_cluster`):
 ``local``
     A ``LocalCluster`` on this machine: one single-threaded worker process per core
     (or ``n_workers``).
-``tcp://HOST:PORT`` (or ``HOST:PORT``)
+``tcp://HOST:PORT`` (or ``HOST:PORT``), ``tls://HOST:PORT``
     A running scheduler, for example one started with ``dask scheduler`` and
-    ``dask worker tcp://HOST:PORT`` on each machine.
+    ``dask worker tcp://HOST:PORT`` on each machine. Anyone who reaches a scheduler
+    can run code on its workers: a tcp:// scheduler on another machine is warned
+    about (:class:`UnsafeClusterWarning`); tls:// takes its certificates from Dask's
+    configuration (``distributed.comm.tls``).
 ``jobqueue:KIND[:JOBS]``
     A batch-system cluster from dask-jobqueue (KIND: slurm, pbs, sge, lsf,
     htcondor, moab or oar), with ``JOBS`` batch jobs (default 1) of workers.
@@ -23,6 +26,7 @@ system that every worker sees at the same path (checked before the run starts).
 
 from __future__ import annotations
 
+import ipaddress
 import os
 import warnings
 from itertools import islice
@@ -42,6 +46,29 @@ JOBQUEUE_KINDS = {"slurm": "SLURMCluster", "pbs": "PBSCluster", "sge": "SGEClust
 
 class ClusterError(RuntimeError):
     """A cluster that cannot be reached or set up, or workers that cannot see the output folder."""
+
+
+class UnsafeClusterWarning(UserWarning):
+    """A scheduler on another machine reached without TLS: whoever reaches it runs code on the workers."""
+
+
+def unsafe_address_reason(address: str) -> str | None:
+    """Why connecting to ``address`` exposes the workers ('' or None when it does not): a
+    plain tcp:// scheduler on another machine has no encryption and no authentication."""
+    scheme, _, rest = address.partition("://")
+    host = rest.rsplit(":", 1)[0].strip("[]")
+    if scheme != "tcp" or host == "localhost" or _is_loopback(host):
+        return None
+    return (f"the Dask scheduler {address} is reached without TLS or authentication: anyone who can reach it can "
+            "run code on its workers. Use a tls:// address with certificates in Dask's configuration "
+            "(distributed.comm.tls), or keep the scheduler on a private network")
+
+
+def _is_loopback(host: str) -> bool:
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False
 
 
 def _dask():
@@ -137,8 +164,9 @@ def open_cluster(spec: str, n_workers: int | None = None) -> DaskCluster:
         # started earlier in this process leaves the variable here for new workers to inherit.
         os.environ.pop(MALLOC_TRIM_SETTING.rsplit(".", 1)[1], None)
         with dask.config.set({MALLOC_TRIM_SETTING: None}):
+            # The dashboard on this machine only (Dask's default listens on every interface).
             cluster = distributed.LocalCluster(n_workers=n_workers or os.cpu_count(), threads_per_worker=1,
-                                               processes=True, dashboard_address=":0")
+                                               processes=True, dashboard_address="127.0.0.1:0")
         return DaskCluster(distributed.Client(cluster), cluster)
     if spec.startswith("jobqueue:"):
         parts = spec.split(":")
@@ -160,6 +188,9 @@ def open_cluster(spec: str, n_workers: int | None = None) -> DaskCluster:
         cluster.scale(jobs=jobs)
         return DaskCluster(distributed.Client(cluster), cluster)
     address = spec if "://" in spec else f"tcp://{spec}"
+    unsafe = unsafe_address_reason(address)
+    if unsafe:
+        warnings.warn(unsafe, UnsafeClusterWarning, stacklevel=2)
     try:
         client = distributed.Client(address, timeout="30s")
     except OSError as error:

@@ -13,13 +13,14 @@ from __future__ import annotations
 import copy
 import hashlib
 import json
-import os
 from pathlib import Path
 from typing import Sequence
 
 import numpy as np
 from ase import Atoms
 from tqdm.auto import tqdm
+
+from molinv.outputs import written_atomically
 
 from .base import AtomFeatures, MoleculeDescriptor, validate_molecules
 
@@ -82,10 +83,8 @@ class FeatureStore:
             arrays.update(values=features.values, numbers=features.numbers, offsets=features.offsets)
         else:
             arrays["values"] = features
-        target = folder / f"part-{number:06d}.npz"
-        partial = folder / f".part-{number:06d}.{os.getpid()}.tmp.npz"
-        np.savez(partial, **arrays)
-        os.replace(partial, target)
+        with written_atomically(folder / f"part-{number:06d}.npz") as temporary, open(temporary, "wb") as handle:
+            np.savez(handle, **arrays)
 
     def describe(
         self,

@@ -17,7 +17,7 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-import os
+import re
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -29,6 +29,7 @@ from sklearn.base import clone
 from tqdm.auto import tqdm
 
 from molinv.molecules.units import convert_energy
+from molinv.outputs import written_atomically
 
 #: The default ladder of training sizes (roughly 1-2-5 per decade; common practice, no source).
 DEFAULT_SIZES = (100, 200, 500, 1000, 2000, 5000, 10000, 20000, 50000, 100000)
@@ -132,21 +133,29 @@ class CurveRun:
                     f"{folder} holds a run on other data or settings ({stored}); choose another folder"
                 )
         else:
-            record.write_text(json.dumps(settings, indent=2))
+            with written_atomically(record) as temporary:
+                temporary.write_text(json.dumps(settings, indent=2))
         return cls(folder, y, test, pool, ladder, int(n_draws), int(seed))
 
-    def _point_path(self, label: str, size: int, draw: int) -> Path:
-        safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in label)
-        return self.folder / "points" / safe / f"n{size:07d}-d{draw:02d}"
+    def _label_folder(self, label: str) -> Path:
+        return self.folder / "points" / "".join(c if c.isalnum() or c in "-_." else "_" for c in label)
 
-    def run(self, X, model, label: str, progress: bool | None = None) -> pd.DataFrame:
+    def _point_path(self, label: str, size: int, draw: int) -> Path:
+        return self._label_folder(label) / f"n{size:07d}-d{draw:02d}"
+
+    def run(self, X, model, label: str, progress: bool | None = None, settings: dict | None = None) -> pd.DataFrame:
         """Fit ``clone(model)`` on every (size, draw) not yet done; return all points of ``label``.
 
         ``X`` is anything the model takes that indexes by molecule (array,
-        CountedFeatures, AtomFeatures), in the order of the targets.
+        CountedFeatures, AtomFeatures), in the order of the targets. ``settings`` (JSON)
+        describes how ``X`` was made (the descriptor's settings): with the model's
+        parameters it is the key of the label's points, so a rerun with other settings
+        into the same folder is refused rather than served the old points.
         """
         if len(X) != len(self.y):
             raise CurveError(f"{len(X)} feature rows for {len(self.y)} targets")
+        self._claim_label(label, {"model": type(model).__name__, "params": model.get_params(deep=False),
+                                  "features": settings or {}})
         jobs = [(size, draw) for size in self.sizes for draw in range(self.n_draws)]
         todo = [(s, d) for s, d in jobs if not self._point_path(label, s, d).with_suffix(".json").exists()]
         X_test, y_test = X[self.test], self.y[self.test]
@@ -165,16 +174,36 @@ class CurveRun:
                      "fit_seconds": fit_seconds, "hyperparameters": chosen_hyperparameters(fitted)}
             path = self._point_path(label, size, draw)
             path.parent.mkdir(parents=True, exist_ok=True)
-            np.savez(path.with_suffix(".tmp.npz"), predicted=predicted)
-            os.replace(path.with_suffix(".tmp.npz"), path.with_suffix(".npz"))
+            with written_atomically(path.with_suffix(".npz")) as temporary, open(temporary, "wb") as handle:
+                np.savez(handle, predicted=predicted)
             # The .json is written last: its presence marks the point as finished.
-            path.with_suffix(".tmp").write_text(json.dumps(point))
-            os.replace(path.with_suffix(".tmp"), path.with_suffix(".json"))
+            with written_atomically(path.with_suffix(".json")) as temporary:
+                temporary.write_text(json.dumps(point))
         return self.points(label)
+
+    def _claim_label(self, label: str, key: dict) -> None:
+        """Record the settings of ``label``'s points, or refuse when they differ from the recorded ones."""
+        key = json.loads(json.dumps(key, sort_keys=True, default=_setting_text))
+        key["params"] = {k: v for k, v in key["params"].items() if k not in NOT_NUMERIC_PARAMS}
+        folder = self._label_folder(label)
+        record = folder / "settings.json"
+        if record.exists():
+            stored = json.loads(record.read_text())
+            if stored != key:
+                differing = sorted(_differences(stored, key))
+                raise CurveError(f"{folder}: the points of {label!r} were computed with other settings "
+                                 f"(differing: {', '.join(differing)[:300]}); choose another folder")
+            return
+        if any(folder.glob(POINT_PATTERN)):
+            raise CurveError(f"{folder}: points of {label!r} without a record of their settings (an older "
+                             "molinv); choose another folder")
+        folder.mkdir(parents=True, exist_ok=True)
+        with written_atomically(record) as temporary:
+            temporary.write_text(json.dumps(key, indent=2, sort_keys=True))
 
     def points(self, label: str | None = None) -> pd.DataFrame:
         """Every finished point (errors in eV), optionally of one label."""
-        rows = [json.loads(p.read_text()) for p in sorted((self.folder / "points").glob("*/*.json"))]
+        rows = [json.loads(p.read_text()) for p in sorted((self.folder / "points").glob("*/" + POINT_PATTERN))]
         table = pd.DataFrame(rows, columns=["label", "size", "draw", "mae", "rmse", "max_error", "fit_seconds",
                                             "hyperparameters"])
         return table if label is None else table[table["label"] == label].reset_index(drop=True)
@@ -183,6 +212,29 @@ class CurveRun:
         """Test-set predictions (eV) of one finished point, in the order of ``self.test``."""
         with np.load(self._point_path(label, size, draw).with_suffix(".npz"), allow_pickle=False) as data:
             return data["predicted"]
+
+
+#: The files of finished points in a label's folder (beside its settings.json).
+POINT_PATTERN = "n*-d*.json"
+
+#: Model parameters that change how a fit runs, not its numbers.
+NOT_NUMERIC_PARAMS = ("progress", "n_jobs")
+
+
+def _setting_text(value) -> str:
+    """A JSON stand-in for a parameter that is an object: its class and its own parameters
+    (never its memory address, which would differ on every run)."""
+    if hasattr(value, "get_params"):
+        return f"{type(value).__name__}({json.dumps(value.get_params(deep=False), sort_keys=True, default=str)})"
+    return re.sub(r" at 0x[0-9a-f]+", "", str(value))
+
+
+def _differences(stored, current, prefix: str = "") -> set[str]:
+    """Dotted names of the settings that differ between two JSON objects."""
+    if isinstance(stored, dict) and isinstance(current, dict):
+        return {name for key in set(stored) | set(current)
+                for name in _differences(stored.get(key), current.get(key), f"{prefix}{key}.")}
+    return {prefix.rstrip(".")} if stored != current else set()
 
 
 def summarize(points: pd.DataFrame, unit: str = "kcal/mol") -> pd.DataFrame:

@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 
 from molinv.molecules.units import convert_energy
+from molinv.outputs import written_atomically
 
 from .curves import CurveRun, PowerLaw, fit_power_law, summarize
 
@@ -27,6 +28,13 @@ def _pyplot():
     import matplotlib.pyplot as plt
 
     return plt
+
+
+def save_figure(figure, path: Path) -> None:
+    """Write ``figure`` as a PNG file, whole or not at all, and free it."""
+    with written_atomically(path) as temporary:
+        figure.savefig(temporary, dpi=120, format="png")
+    _pyplot().close(figure)
 
 
 def plot_learning_curves(summary: pd.DataFrame, fits: dict[str, PowerLaw], unit: str, target: float | None, path: Path):
@@ -49,8 +57,7 @@ def plot_learning_curves(summary: pd.DataFrame, fits: dict[str, PowerLaw], unit:
     axes.grid(True, which="both", alpha=0.3)
     axes.legend(fontsize=8)
     figure.tight_layout()
-    figure.savefig(path, dpi=120)
-    plt.close(figure)
+    save_figure(figure, path)
 
 
 def plot_parity_and_errors(reference: np.ndarray, predicted: np.ndarray, n_atoms: np.ndarray, label: str,
@@ -67,8 +74,7 @@ def plot_parity_and_errors(reference: np.ndarray, predicted: np.ndarray, n_atoms
     axes.set_title(label, fontsize=9)
     figure.tight_layout()
     paths.append(folder / "parity.png")
-    figure.savefig(paths[-1], dpi=120)
-    plt.close(figure)
+    save_figure(figure, paths[-1])
 
     figure, axes = plt.subplots(figsize=(4.8, 3.6))
     axes.hist(errors, bins=60)
@@ -76,8 +82,7 @@ def plot_parity_and_errors(reference: np.ndarray, predicted: np.ndarray, n_atoms
     axes.set_ylabel("test molecules")
     figure.tight_layout()
     paths.append(folder / "error_histogram.png")
-    figure.savefig(paths[-1], dpi=120)
-    plt.close(figure)
+    save_figure(figure, paths[-1])
 
     figure, axes = plt.subplots(figsize=(4.8, 3.6))
     table = pd.DataFrame({"n_atoms": n_atoms, "abs_error": np.abs(errors)}).groupby("n_atoms")["abs_error"].mean()
@@ -86,8 +91,7 @@ def plot_parity_and_errors(reference: np.ndarray, predicted: np.ndarray, n_atoms
     axes.set_ylabel(f"MAE ({unit})")
     figure.tight_layout()
     paths.append(folder / "errors_by_size.png")
-    figure.savefig(paths[-1], dpi=120)
-    plt.close(figure)
+    save_figure(figure, paths[-1])
     return paths
 
 
@@ -116,9 +120,11 @@ def write_report(
     for column in ("mae", "rmse", "max_error"):
         table[f"{column}_{unit}"] = convert_energy(table.pop(column).to_numpy(), "eV", unit)
     table["hyperparameters"] = table["hyperparameters"].map(lambda h: ";".join(f"{k}={v}" for k, v in h.items()))
-    table.to_csv(folder / "points.csv", index=False)
+    with written_atomically(folder / "points.csv") as temporary:
+        table.to_csv(temporary, index=False)
     summary = summarize(points, unit)
-    summary.to_csv(folder / "summary.csv", index=False)
+    with written_atomically(folder / "summary.csv") as temporary:
+        summary.to_csv(temporary, index=False)
 
     fits, rows = {}, []
     for label, label_points in points.groupby("label"):
@@ -147,7 +153,8 @@ def write_report(
                            unit, folder)
     page = _html_page(title, summary, pd.DataFrame(rows), settings or {}, data_citation, unit, best_label, largest,
                       len(run.test))
-    (folder / "report.html").write_text(page)
+    with written_atomically(folder / "report.html") as temporary:
+        temporary.write_text(page)
     return folder / "report.html"
 
 

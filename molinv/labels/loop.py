@@ -32,6 +32,7 @@ from tqdm.auto import tqdm
 
 from molinv.evaluation.curves import chosen_hyperparameters, error_metrics
 from molinv.models.kernel_ridge import fixed_hyperparameters
+from molinv.outputs import written_atomically
 
 from .choose import model_variance_batch, pick_batch, spread_batch
 from .methods import LabelError, LabelMethod
@@ -141,7 +142,8 @@ class PickLoop:
             if stored != settings or earlier != self.sizes[: len(earlier)]:
                 raise LabelError(f"{self.folder} holds a loop with other molecules or settings "
                                  f"({record.read_text().strip()}); choose another folder")
-        record.write_text(json.dumps({**settings, "sizes": self.sizes}, indent=2))
+        with written_atomically(record) as temporary:
+            temporary.write_text(json.dumps({**settings, "sizes": self.sizes}, indent=2))
 
     @property
     def label(self) -> str:

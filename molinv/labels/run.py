@@ -32,6 +32,7 @@ from threadpoolctl import threadpool_limits
 from molinv.cluster.chunks import InProcess, LocalProcesses, chunked, folder_beside, part_path, run_chunks
 from molinv.molecules.packed import MoleculeChunk, pack
 from molinv.molecules.units import ENERGY_UNITS
+from molinv.outputs import written_atomically
 
 from .methods import LabelError, LabelFailure, LabelMethod, atomization_energy_ev, total_energy_hartree
 
@@ -98,7 +99,8 @@ def _finished_rows(path: Path, method: LabelMethod | None) -> pd.DataFrame:
     text = path.read_text()
     if not text.endswith("\n"):
         text = text[: text.rfind("\n") + 1]
-        path.write_text(text)
+        with written_atomically(path) as temporary:
+            temporary.write_text(text)
     try:
         # Only the number columns read 'nan' as missing: a molecule may well be called 'NA'.
         missing = {column: ["nan", ""] for column in NUMBER_COLUMNS}

@@ -19,7 +19,6 @@ from __future__ import annotations
 import hashlib
 import json
 import platform
-import zipfile
 from pathlib import Path
 
 import numpy as np
@@ -33,6 +32,7 @@ from molinv.models.inputs import fingerprint
 from molinv.models.kernel_ridge import AtomwiseKernelRidge, AtomwiseKernelRidgeCV, KernelRidgeCV, KernelRidgeModel
 from molinv.models.linear import LinearRidge
 from molinv.models.nystrom import NystromRidge, NystromRidgeCV
+from molinv.outputs import written_atomically
 
 FORMAT_NAME = "molinv-model"
 FORMAT_VERSION = 1
@@ -165,7 +165,7 @@ def save_model(path, model, metadata: dict | None = None, extra_arrays: dict | N
     members = {ARRAY_PREFIX + name: array for name, array in arrays.items()}
     members.update({EXTRA_PREFIX + name: array for name, array in extra_arrays.items()})
     members[HEADER_MEMBER] = np.frombuffer(json.dumps(header, sort_keys=True).encode(), dtype=np.uint8)
-    with open(path, "wb") as handle:
+    with written_atomically(path) as temporary, open(temporary, "wb") as handle:
         np.savez(handle, **members)
     return path
 
@@ -185,7 +185,13 @@ def _read(path):
     if not path.is_file():
         raise ModelFileError(path, "no such file")
     try:
-        with np.load(path, allow_pickle=False) as archive:
+        archive = np.load(path, allow_pickle=False)
+    except Exception as error:  # noqa: BLE001  a damaged zip raises many types (NotImplementedError too)
+        raise ModelFileError(path, f"unreadable or truncated ({_one_line(error)})") from error
+    if not isinstance(archive, np.lib.npyio.NpzFile):
+        raise ModelFileError(path, "not a molinv model file (a single array, not an .npz archive)")
+    try:
+        with archive:
             names = set(archive.files)
             if HEADER_MEMBER not in names:
                 raise ModelFileError(path, "not a molinv model file (no header)")
@@ -194,8 +200,8 @@ def _read(path):
             extras = {n[len(EXTRA_PREFIX) :]: archive[n] for n in names if n.startswith(EXTRA_PREFIX)}
     except ModelFileError:
         raise
-    except (zipfile.BadZipFile, EOFError, OSError, ValueError, KeyError, UnicodeDecodeError) as error:
-        raise ModelFileError(path, f"unreadable or truncated ({type(error).__name__}: {error})") from error
+    except Exception as error:  # noqa: BLE001  as above: any failure to read a member is damage
+        raise ModelFileError(path, f"unreadable or truncated ({_one_line(error)})") from error
     if not isinstance(header, dict) or header.get("format") != FORMAT_NAME:
         raise ModelFileError(path, "not a molinv model file (wrong format name)")
     if header.get("format_version") != FORMAT_VERSION:
@@ -216,6 +222,10 @@ def _read(path):
     if set(expected_extra) != set(extras) or any(fingerprint(a) != expected_extra[n] for n, a in extras.items()):
         raise ModelFileError(path, "extra arrays missing, unexpected or edited (SHA-256 mismatch)")
     return header, arrays, extras
+
+
+def _one_line(error: Exception) -> str:
+    return " ".join(f"{type(error).__name__}: {error}".split())[:300]
 
 
 def load_model(path):

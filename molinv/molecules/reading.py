@@ -13,20 +13,24 @@ reason; nothing is dropped silently.
 
 from __future__ import annotations
 
+import codecs
+import csv
 import io
 import math
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Iterable, Iterator, Sequence
+from typing import Callable, Iterable, Iterator, NamedTuple, Sequence
 
 import numpy as np
-import pandas as pd
 from ase import Atoms
+from ase.data import atomic_numbers
 from ase.io import read as ase_read
+from ase.io.extxyz import key_val_str_to_dict, parse_properties
 from rdkit import Chem
 from tqdm.auto import tqdm
 
-from .checks import MoleculeError, Rejected, check_geometry
+from .checks import MoleculeError, Rejected, check_geometry, shorten
 from .embedding import EMBED_SEED, atoms_from_rdkit, embed_smiles, rdkit_messages, rdkit_reason
 from .units import ENERGY_UNITS, LENGTH_UNITS, energy_unit, length_unit
 
@@ -115,14 +119,15 @@ def iter_molecules(
 ) -> Iterator[Atoms | Rejected]:
     """Each record of a file in order, as an ``ase.Atoms`` or a :class:`Rejected`.
 
-    Records are built one at a time, so memory does not grow with the file (CSV
-    tables are read in blocks).
+    Records are built one at a time, so memory does not grow with the file (XYZ
+    files, whose framing looks ahead, are read whole as lines).
 
     Parameters
     ----------
     path : str or Path
         XYZ/extended XYZ, SDF/MOL, SMILES list (``.smi``: SMILES then an optional
-        name per line) or CSV with a SMILES column.
+        name per line) or CSV with a SMILES column (one row per line). UTF-8, with
+        or without a byte-order mark, LF or CRLF line ends.
     file_format : {'xyz', 'sdf', 'smiles', 'csv'}, optional
         Overrides the guess from the suffix.
     length : str
@@ -150,6 +155,10 @@ def iter_molecules(
         yield record.build_molecule()
 
 
+#: What RDKit logs when a Ctrl-C reached it during an embedding (RDKit 2026.09).
+RDKIT_INTERRUPTED = "Interrupted, cancelling"
+
+
 @dataclass(frozen=True)
 class PendingRecord:
     """A record located in a file but not built yet.
@@ -172,14 +181,34 @@ class PendingRecord:
         return self.build.smiles if isinstance(self.build, SmilesBuilder) else None
 
     def build_molecule(self) -> Atoms | Rejected:
+        """The molecule, or the record's rejection; raises KeyboardInterrupt when Ctrl-C was
+        pressed while RDKit embedded it."""
+        with rdkit_messages() as messages:
+            built = self._build()
+        if any(RDKIT_INTERRUPTED in message for message in messages):
+            # RDKit's embedding takes SIGINT for itself: it cancels this embedding and returns.
+            raise KeyboardInterrupt
+        return built
+
+    def _build(self) -> Atoms | Rejected:
         try:
             atoms = self.build()
             _finish(atoms, self.units, self.name or f"{Path(self.source).stem}:{self.number}",
                     f"{self.source}:{self.number}")
         except MoleculeError as error:
             return Rejected(self.source, self.number, self.line, self.name, str(error))
+        except Exception as error:  # noqa: BLE001  RDKit and ase fail in many ways on odd records; each is that record's
+            return Rejected(self.source, self.number, self.line, self.name,
+                            f"cannot build the record: {_summary(error)}")
         atoms.info["record"] = self.number
         return atoms
+
+
+def _summary(error: Exception) -> str:
+    """The exception type and the first lines of its message (RDKit's C++ errors run to a
+    stack of lines: 'Pre-condition Violation', the cause, then source files)."""
+    lines = [line.strip() for line in str(error).splitlines() if line.strip()][:2]
+    return f"{type(error).__name__}: {': '.join(lines)}"
 
 
 def iter_records(path, *, file_format: str | None = None, length: str = "Angstrom", energy: str = "eV",
@@ -233,9 +262,14 @@ def _finish(atoms: Atoms, units: UnitsDeclared, name: str, source: str) -> None:
             if units.require_energy:
                 raise MoleculeError(f"missing energy {key!r}")
             continue
-        value = _as_number(atoms.info[key])
+        given = atoms.info[key]
+        if isinstance(given, (bool, np.bool_)):
+            raise MoleculeError(f"energy {key!r} is a boolean ({given}), not a number")
+        value = _as_number(given)
         if value is None:
-            raise MoleculeError(f"non-numeric energy {key!r}: {atoms.info[key]!r}")
+            raise MoleculeError(f"non-numeric energy {key!r}: {shorten(repr(given), 60)}")
+        if not math.isfinite(value):
+            raise MoleculeError(f"energy {key!r} is not finite: {given!r}")
         atoms.info[key] = value * ENERGY_UNITS[units.energy]
     atoms.info.setdefault("name", name)
     atoms.info["name"] = str(atoms.info["name"])
@@ -244,51 +278,136 @@ def _finish(atoms: Atoms, units: UnitsDeclared, name: str, source: str) -> None:
 
 
 def _as_number(value) -> float | None:
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
+    """``value`` as a float (infinity and NaN included), or None for text and booleans."""
+    if isinstance(value, (bool, np.bool_)):
         return None
-    return number if math.isfinite(number) else None
+    try:
+        return float(value)
+    except (TypeError, ValueError, OverflowError):
+        return None
 
 
 # Each reader yields (record number, start line, name or None, build) where build()
 # returns the Atoms or raises MoleculeError, so that failures stay per record.
 Record = tuple[int, "int | None", "str | None", "callable"]
 
+#: Longest line read (bytes); a longer one is cut and its record rejected, which bounds
+#: the work and memory spent on one record.
+MAX_LINE_BYTES = 1_000_000
+#: Longest SMILES embedded: embedding time grows steeply with size, and a SMILES this long
+#: already has about MAX_ATOMS atoms with its hydrogens (common practice, no source).
+MAX_SMILES_CHARACTERS = 1000
+#: Most columns read from a CSV header.
+MAX_CSV_COLUMNS = 10_000
+
+
+class TextLine(NamedTuple):
+    number: int  # from 1
+    text: str  # without its line end
+    problem: str | None  # why the line cannot be read: not UTF-8, too long
+
+
+def _text_lines(path: Path) -> Iterator[TextLine]:
+    """Lines of a text file without their line ends (LF or CRLF) and without a leading
+    UTF-8 byte-order mark. A line that is not UTF-8 or is longer than MAX_LINE_BYTES
+    carries its problem, so that only its record is rejected."""
+    with open(path, "rb") as handle:
+        number = 0
+        while raw := handle.readline(MAX_LINE_BYTES + 1):
+            number += 1
+            problem = None
+            if len(raw) > MAX_LINE_BYTES and not raw.endswith(b"\n"):
+                while (rest := handle.readline(MAX_LINE_BYTES)) and not rest.endswith(b"\n"):
+                    pass
+                problem = f"line {number} is longer than {MAX_LINE_BYTES:,} bytes"
+            if number == 1 and raw.startswith(codecs.BOM_UTF8):
+                raw = raw[len(codecs.BOM_UTF8):]
+            raw = raw.rstrip(b"\r\n")
+            try:
+                text = raw.decode("utf-8")
+            except UnicodeDecodeError as error:
+                text = raw.decode("utf-8", "replace")
+                problem = problem or (f"line {number} is not UTF-8 text "
+                                      f"(byte 0x{raw[error.start]:02x} at column {error.start + 1})")
+            yield TextLine(number, text, problem)
+
+
+def _first_problem(lines: Sequence[TextLine]) -> str | None:
+    return next((line.problem for line in lines if line.problem), None)
+
+
+def _quoted(text: str, limit: int = 60) -> str:
+    return repr(text if len(text) <= limit else text[:limit] + "...")
+
+
+_COUNT_LINE = re.compile(r"\s*\+?(\d{1,18})\s*", re.ASCII)
+
+
+def _atom_count(text: str) -> int | None:
+    """The atom count when ``text`` is an XYZ count line (one whole number), else None."""
+    match = _COUNT_LINE.fullmatch(text)
+    return int(match.group(1)) if match else None
+
+
+def _is_atom_line(text: str) -> bool:
+    """An element and three numbers (extended XYZ may add columns)."""
+    fields = text.split(None, 4)
+    return len(fields) >= 4 and all(_as_number(value) is not None for value in fields[1:4])
+
+
+def _next_count_line(texts: Sequence[str], position: int) -> int:
+    while position < len(texts) and _atom_count(texts[position]) is None:
+        position += 1
+    return position
+
 
 def _xyz_records(path: Path) -> Iterator[Record]:
-    """Frames of an XYZ file; framing by the atom-count line, parsing by ase.io."""
-    lines = path.read_text().splitlines()  # XYZ framing looks ahead; SMILES and SDF stream
+    """Frames of an XYZ file; framing by the atom-count line, parsing by ase.io.
+
+    The count is checked against the atom lines that follow it, so that a wrong count
+    rejects its own frame only: a frame stops at the first line that is not an atom line,
+    and after a frame that came up short, reading resumes at the next count line.
+    """
+    lines = list(_text_lines(path))  # XYZ framing looks ahead; SMILES and SDF stream
+    texts = [line.text for line in lines]
     position, number = 0, 0
     while position < len(lines):
-        if not lines[position].strip():
+        if not texts[position].strip():
             position += 1
             continue
         number += 1
         start = position
-        count_text = lines[start].strip()
-        try:
-            count = int(count_text)
-            if count < 0:
-                raise ValueError
-        except ValueError:
-            # Resynchronise at the next line that is a bare atom count.
-            position = start + 1
-            while position < len(lines) and not lines[position].strip().isdigit():
-                position += 1
-            yield number, start + 1, None, _failing(f"expected an atom count on the first line, found {count_text!r}")
+        count = _atom_count(texts[start])
+        if count is None:
+            position = _next_count_line(texts, start + 1)
+            yield number, start + 1, None, _failing(
+                f"expected an atom count on line {start + 1}, found {_quoted(texts[start])}")
             continue
-        frame = lines[start : start + count + 2]
-        position = start + count + 2
-        comment = frame[1] if len(frame) > 1 else ""
+        comment = texts[start + 1] if start + 1 < len(texts) else ""
         name = _name_from_comment(comment)
-        if count == 0:
-            yield number, start + 1, name, _failing("empty record: atom count is 0")
-        elif len(frame) < count + 2 or any(not line.strip() for line in frame[2:]):
-            found = sum(1 for line in frame[2:] if line.strip())
-            yield number, start + 1, name, _failing(f"truncated record: {count} atoms declared, {found} atom lines found")
+        first_atom = end = start + 2
+        while end < len(texts) and _is_atom_line(texts[end]):
+            end += 1
+        found = end - first_atom
+        position = end
+        if found < count:
+            if end < len(texts):
+                stop = f"line {end + 1} is not an atom line: {_quoted(texts[end])}"
+                position = _next_count_line(texts, end)
+            else:
+                stop = "the file ends"
+            reason = f"truncated record: {count} atoms declared, {found} atom lines found; {stop}"
+        elif found > count:
+            reason = (f"{count} atoms declared on line {start + 1}, but {found} atom lines follow "
+                      f"(lines {first_atom + 1}-{end})")
+        elif count == 0:
+            reason = "empty record: atom count is 0"
         else:
-            yield number, start + 1, name, _xyz_builder(frame, comment)
+            reason = _first_problem(lines[start:end])
+        if reason:
+            yield number, start + 1, name, _failing(reason)
+        else:
+            yield number, start + 1, name, _xyz_builder(texts[start:end], comment, start + 1)
 
 
 def _name_from_comment(comment: str) -> str | None:
@@ -300,20 +419,36 @@ def _name_from_comment(comment: str) -> str | None:
     return comment.strip() or None
 
 
-def _xyz_builder(frame: list[str], comment: str):
+def _xyz_builder(frame: list[str], comment: str, first_line: int):
     def build() -> Atoms:
         text = "\n".join(frame) + "\n"
         try:
             atoms = ase_read(io.StringIO(text), format="extxyz" if "=" in comment else "xyz")
-        except KeyError as error:
-            raise MoleculeError(f"unknown element symbol {error.args[0]!r}") from None
         except Exception as error:  # ase raises many exception types for malformed frames
-            raise MoleculeError(f"cannot parse frame: {error}") from None
+            raise MoleculeError(_frame_problem(frame, comment, first_line) or (
+                f"cannot parse the frame (lines {first_line}-{first_line + len(frame) - 1}): "
+                f"{type(error).__name__}: {error}")) from None
         if "=" not in comment and comment.strip():
             atoms.info["name"] = comment.strip()
         return atoms
 
     return build
+
+
+def _frame_problem(frame: list[str], comment: str, first_line: int) -> str | None:
+    """Where and why a frame that ase refused is wrong: an extended-XYZ comment line that is
+    not key=value pairs, or an unknown element."""
+    if "=" in comment:
+        try:
+            parse_properties(str(key_val_str_to_dict(comment).get("Properties", "species:S:1:pos:R:3")))
+        except Exception:  # noqa: BLE001  ase's parser raises several types; the line is what matters
+            return (f"line {first_line + 1}: the extended-XYZ comment line is not key=value pairs with a valid "
+                    f"Properties column list: {_quoted(comment)}")
+    for offset, text in enumerate(frame[2:], start=2):
+        symbol = text.split(None, 1)[0]
+        if not (symbol.isdigit() or symbol.lower().capitalize() in atomic_numbers):
+            return f"line {first_line + offset}: unknown element symbol {_quoted(symbol)}"
+    return None
 
 
 def _failing(reason: str):
@@ -323,26 +458,54 @@ def _failing(reason: str):
     return build
 
 
+#: The counts line of a molfile (V2000 or V3000), which starts every molecule of an SDF.
+_COUNTS_LINE = re.compile(r"[ \d]{6}.*V[23]000\s*", re.ASCII)
+
+
 def _sdf_records(path: Path) -> Iterator[Record]:
-    """Records of an SDF/MOL file, each parsed by RDKit on its own for per-record reasons."""
-    block, start, number = [], 1, 0
-    with open(path) as handle:
-        for line_number, line in enumerate(handle, start=1):
+    """Records of an SDF/MOL file, each parsed by RDKit on its own for per-record reasons.
+
+    A molecule that follows another without a '$$$$' line between them (molfiles
+    concatenated, a damaged separator) is found by its counts line and read as a
+    record of its own, its three header lines before the counts line.
+    """
+    block: list[TextLine] = []
+    counts_at = end_at = None  # positions in block of the counts line and of 'M  END'
+    number = 0
+    for line in _text_lines(path):
+        if line.text.strip() == "$$$$":
             block.append(line)
-            if line.strip() == "$$$$":
-                number += 1
-                yield number, start, _sdf_title(block), _sdf_builder("".join(block))
-                block, start = [], line_number + 1
-    if any(line.strip() for line in block):
+            number += 1
+            yield number, block[0].number, _sdf_title(block), _sdf_builder(block)
+            block, counts_at, end_at = [], None, None
+            continue
+        is_counts = bool(_COUNTS_LINE.fullmatch(line.text))
+        if is_counts and counts_at is not None:
+            floor = counts_at + 1 if end_at is None else end_at + 1
+            split = max(floor, len(block) - 3)
+            number += 1
+            yield number, block[0].number, _sdf_title(block[:split]), _sdf_builder(block[:split])
+            block, counts_at, end_at = block[split:], None, None
+        if is_counts and counts_at is None:
+            counts_at = len(block)
+        elif line.text.startswith("M  END") and end_at is None:
+            end_at = len(block)
+        block.append(line)
+    if any(line.text.strip() for line in block):
         number += 1
-        yield number, start, _sdf_title(block), _sdf_builder("".join(block))
+        yield number, block[0].number, _sdf_title(block), _sdf_builder(block)
 
 
-def _sdf_title(block: list[str]) -> str | None:
-    return block[0].strip() or None if block else None
+def _sdf_title(block: list[TextLine]) -> str | None:
+    return block[0].text.strip() or None if block else None
 
 
-def _sdf_builder(block: str):
+def _sdf_builder(lines: list[TextLine]):
+    problem = _first_problem(lines)
+    if problem:
+        return _failing(problem)
+    block = "".join(line.text + "\n" for line in lines)
+
     def build() -> Atoms:
         supplier = Chem.SDMolSupplier()
         with rdkit_messages() as messages:
@@ -371,17 +534,16 @@ def _sdf_builder(block: str):
 def _smiles_records(path: Path, seed: int) -> Iterator[Record]:
     """One SMILES per line, optionally followed by a name; '#' starts a comment line."""
     number = 0
-    with open(path) as handle:
-        for line_number, line in enumerate(handle, start=1):
-            stripped = line.strip()
-            if not stripped or stripped.startswith("#"):
-                continue
-            fields = stripped.split(None, 1)
-            if number == 0 and fields[0].lower() == "smiles":
-                continue
-            number += 1
-            name = fields[1].strip() if len(fields) > 1 else None
-            yield number, line_number, name, SmilesBuilder(fields[0], seed, {})
+    for line in _text_lines(path):
+        stripped = line.text.strip()
+        if not stripped or stripped.startswith("#"):
+            continue
+        fields = stripped.split(None, 1)
+        if number == 0 and fields[0].lower() == "smiles":
+            continue
+        number += 1
+        name = fields[1].strip() if len(fields) > 1 else None
+        yield number, line.number, name, _failing(line.problem) if line.problem else SmilesBuilder(fields[0], seed, {})
 
 
 @dataclass(frozen=True)
@@ -393,6 +555,9 @@ class SmilesBuilder:
     properties: dict
 
     def __call__(self) -> Atoms:
+        if len(self.smiles) > MAX_SMILES_CHARACTERS:
+            raise MoleculeError(f"SMILES of {len(self.smiles)} characters, more than the {MAX_SMILES_CHARACTERS} "
+                                "of the largest molecule molinv embeds")
         atoms = embed_smiles(self.smiles, seed=self.seed)
         atoms.info.update(self.properties)
         return atoms
@@ -402,7 +567,7 @@ def _find_column(columns: Iterable[str], wanted: str | None, defaults: tuple[str
     columns = list(columns)
     if wanted is not None:
         if wanted not in columns:
-            raise InputError(f"{path}: no column {wanted!r}; columns are {', '.join(columns)}")
+            raise InputError(shorten(f"{path}: no column {wanted!r}; columns are {', '.join(columns)}"))
         return wanted
     lowered = {c.strip().lower(): c for c in columns}
     for candidate in defaults:
@@ -411,45 +576,65 @@ def _find_column(columns: Iterable[str], wanted: str | None, defaults: tuple[str
     return None
 
 
-def _csv_records(path: Path, smiles_column: str | None, name_column: str | None, seed: int,
-                 block_rows: int = 10000) -> Iterator[Record]:
+def _csv_cells(line: TextLine) -> list[str]:
+    """The cells of one CSV line; MoleculeError names the line when it cannot be split."""
+    if line.problem:
+        raise MoleculeError(line.problem)
+    try:
+        return next(csv.reader([line.text]))
+    except csv.Error as error:
+        raise MoleculeError(f"line {line.number} is not a CSV row: {error}") from None
+
+
+def _csv_records(path: Path, smiles_column: str | None, name_column: str | None, seed: int) -> Iterator[Record]:
     """Rows of a CSV table: a SMILES column, an optional name column, property columns.
 
-    Read in blocks of ``block_rows`` so that memory stays flat for long tables.
+    Rows are read one at a time, one row per line (a cell cannot hold a line break), so
+    that a damaged row (a stray quote, a missing or extra cell, bytes that are not UTF-8)
+    is rejected alone and every line number is exact.
     """
-    try:
-        blocks = pd.read_csv(path, dtype=str, keep_default_na=False, chunksize=block_rows)
-        first = next(blocks, None)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as error:
-        raise InputError(f"{path}: cannot read as CSV: {error}") from None
-    if first is None:
+    lines = (line for line in _text_lines(path) if line.text.strip())
+    header = next(lines, None)
+    if header is None:
         return
-    columns = list(first.columns)
+    if header.problem:
+        raise InputError(f"{path}: cannot read the header: {header.problem}")
+    if header.text.count(",") >= MAX_CSV_COLUMNS:
+        raise InputError(f"{path}: the header (line {header.number}) has {header.text.count(',') + 1:,} columns; "
+                         f"at most {MAX_CSV_COLUMNS:,} are read")
+    try:
+        columns = _csv_cells(header)
+    except MoleculeError as error:
+        raise InputError(f"{path}: cannot read the header: {error}") from None
+    columns = [c if c.strip() else f"column {i}" for i, c in enumerate(columns, start=1)]
+    repeated = sorted({c for c in columns if columns.count(c) > 1})
+    if repeated:
+        raise InputError(shorten(f"{path}: column names repeat in the header: {', '.join(map(repr, repeated))}"))
     smiles_key = _find_column(columns, smiles_column, ("smiles",), path)
     if smiles_key is None:
-        raise InputError(f"{path}: no SMILES column; name one with smiles_column (columns: {', '.join(columns)})")
+        raise InputError(shorten(f"{path}: no SMILES column; name one with smiles_column "
+                                 f"(columns: {', '.join(columns)})"))
     name_key = _find_column(columns, name_column, ("name", "id"), path)
+    name_index = columns.index(name_key) if name_key else None
     property_keys = [c for c in columns if c not in (smiles_key, name_key)]
-    row_number = 0
 
-    def all_blocks():
-        yield first
+    for row_number, line in enumerate(lines, start=1):
         try:
-            yield from blocks
-        except (pd.errors.ParserError, UnicodeDecodeError) as error:
-            raise InputError(f"{path}: cannot read as CSV after row {row_number}: {error}") from None
-
-    for block in all_blocks():
-        for row in block.itertuples(index=False):
-            row_number += 1
-            values = dict(zip(columns, row))
-            properties = {}
-            for key in property_keys:
-                text = values[key].strip()
-                if text == "":
-                    continue  # an empty cell is a missing value; require_energy reports it when it matters
-                number = _as_number(text)
-                properties[key] = number if number is not None else text
-            name = values[name_key].strip() if name_key and values[name_key].strip() else None
-            # Line numbers count the header as line 1 (quoted newlines inside cells would shift them).
-            yield row_number, row_number + 1, name, SmilesBuilder(values[smiles_key], seed, properties)
+            cells = _csv_cells(line)
+        except MoleculeError as error:
+            yield row_number, line.number, None, _failing(str(error))
+            continue
+        name = cells[name_index].strip() or None if name_index is not None and name_index < len(cells) else None
+        if len(cells) != len(columns):
+            yield row_number, line.number, name, _failing(
+                f"line {line.number} has {len(cells)} cells, the header has {len(columns)} columns")
+            continue
+        values = dict(zip(columns, cells))
+        properties = {}
+        for key in property_keys:
+            text = values[key].strip()
+            if text == "":
+                continue  # an empty cell is a missing value; require_energy reports it when it matters
+            number = _as_number(text)
+            properties[key] = number if number is not None else text
+        yield row_number, line.number, name, SmilesBuilder(values[smiles_key], seed, properties)

@@ -16,6 +16,8 @@ from ase.io import write as ase_write
 from rdkit import Chem
 from rdkit.Chem import AllChem, rdDetermineBonds
 
+from molinv.outputs import written_atomically
+
 from .reading import InputError, detect_format
 from .units import ENERGY_UNITS, LENGTH_UNITS, energy_unit, length_unit
 
@@ -50,30 +52,32 @@ def write_molecules(
     fmt = file_format or detect_format(path)
     length_factor = LENGTH_UNITS[length_unit(length)]
     energy_factor = ENERGY_UNITS[energy_unit(energy)]
-    if fmt == "xyz":
-        frames = []
-        for atoms in molecules:
-            frame = Atoms(numbers=atoms.numbers, positions=atoms.get_positions() / length_factor)
-            frame.info.update(_scalar_properties(atoms, energy_keys, energy_factor))
-            frames.append(frame)
-        ase_write(path, frames, format="extxyz")
-    elif fmt == "sdf":
-        with Chem.SDWriter(str(path)) as writer:
-            for atoms in molecules:
-                writer.write(_rdkit_molecule(atoms, length_factor, energy_keys, energy_factor))
-    elif fmt in ("smiles", "csv"):
+    if fmt not in ("xyz", "sdf", "smiles", "csv"):
+        raise InputError(f"{path}: unknown format {fmt!r}; choose xyz, sdf, smiles or csv")
+    if fmt in ("smiles", "csv"):
         missing = [str(a.info.get("name", i)) for i, a in enumerate(molecules) if "smiles" not in a.info]
         if missing:
             raise InputError(f"{path}: molecules without a SMILES cannot be written as {fmt}: {', '.join(missing[:5])}")
-        rows = [_scalar_properties(atoms, energy_keys, energy_factor) for atoms in molecules]
-        if fmt == "smiles":
-            path.write_text("".join(f"{row['smiles']} {row.get('name', '')}".rstrip() + "\n" for row in rows))
+    with written_atomically(path) as temporary:
+        if fmt == "xyz":
+            frames = []
+            for atoms in molecules:
+                frame = Atoms(numbers=atoms.numbers, positions=atoms.get_positions() / length_factor)
+                frame.info.update(_scalar_properties(atoms, energy_keys, energy_factor))
+                frames.append(frame)
+            ase_write(temporary, frames, format="extxyz")
+        elif fmt == "sdf":
+            with Chem.SDWriter(str(temporary)) as writer:
+                for atoms in molecules:
+                    writer.write(_rdkit_molecule(atoms, length_factor, energy_keys, energy_factor))
         else:
-            table = pd.DataFrame(rows)
-            leading = [c for c in ("name", "smiles") if c in table.columns]
-            table[leading + [c for c in table.columns if c not in leading]].to_csv(path, index=False)
-    else:
-        raise InputError(f"{path}: unknown format {fmt!r}; choose xyz, sdf, smiles or csv")
+            rows = [_scalar_properties(atoms, energy_keys, energy_factor) for atoms in molecules]
+            if fmt == "smiles":
+                temporary.write_text("".join(f"{row['smiles']} {row.get('name', '')}".rstrip() + "\n" for row in rows))
+            else:
+                table = pd.DataFrame(rows)
+                leading = [c for c in ("name", "smiles") if c in table.columns]
+                table[leading + [c for c in table.columns if c not in leading]].to_csv(temporary, index=False)
     return path
 
 

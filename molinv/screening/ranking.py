@@ -35,6 +35,10 @@ from tqdm.auto import tqdm
 
 from molinv.cluster.chunks import iter_tables
 
+from molinv.outputs import written_atomically
+
+from .spreadsheet import TEXT_COLUMNS, neutralised, restored
+
 #: Sort key of a finished row, written before its fields in a run file: unranked (0 or 1),
 #: missing order value (0 or 1), order value, position of the row in the whole table.
 KEY_COLUMNS = ["unranked", "missing", "order", "position"]
@@ -207,7 +211,9 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
     ``csv_path`` (and ``parquet_path``, row group by row group) with the rules of
     :func:`finish_ranking`, holding at most about ``run_rows`` rows (and one chunk) at a
     time; the CSV file has the bytes, the Parquet file the values and types, that
-    writing ``finish_ranking`` of all chunks at once gives. At most ``fan_in`` run
+    writing ``finish_ranking`` of all chunks at once gives (in the CSV file, names and
+    reasons that a spreadsheet would run as formulas start with a quote: see
+    :mod:`molinv.screening.spreadsheet`). At most ``fan_in`` run
     files are open at once.
 
     Temporary run files go to a folder beside ``csv_path`` and are removed at the end.
@@ -221,7 +227,8 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
 
     book = read_book(lambda: tables("rank: read"), unit, target)
     if book.rows == 0:
-        pd.DataFrame().to_csv(csv_path, index=False)
+        with written_atomically(csv_path) as temporary:
+            pd.DataFrame().to_csv(temporary, index=False)
         return RankedFiles(0, {}, pd.DataFrame())
     with tempfile.TemporaryDirectory(dir=csv_path.parent, prefix=".ranking-") as scratch:
         runs = RunWriter(Path(scratch), run_rows, top)
@@ -231,10 +238,9 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
             start += len(table)
         runs.flush()
         columns = list(runs.dtypes.index) + ["rank"]
-        partial = csv_path.with_name(f".{csv_path.name}.tmp")
         leaders = set(runs.leader_keys["position"].tolist())
-        ranks_of = merge_runs(merge_into_runs(runs.paths, fan_in), partial, columns, leaders)
-        os.replace(partial, csv_path)
+        with written_atomically(csv_path) as temporary:
+            ranks_of = merge_runs(merge_into_runs(runs.paths, fan_in), temporary, columns, leaders)
     best = runs.leaders.assign(rank=[ranks_of[p] for p in runs.leader_keys["position"].tolist()])
     if parquet_path is not None:
         write_parquet(csv_path, parquet_path, runs.dtypes, run_rows)
@@ -311,12 +317,16 @@ def merge_runs(paths: list[Path], csv_path: Path, columns: list[str], wanted: se
         # pandas writes CSV with the csv module's default dialect and the platform's line end.
         writer = csv.writer(handle, lineterminator=os.linesep)
         writer.writerow(columns)
+        text_columns = [columns.index(c) for c in TEXT_COLUMNS if c in columns]
         for (unranked, _, _, position), fields in merged_records(paths):
             rank += not unranked
             text = "" if unranked else str(np.float64(rank))
             if position in wanted:
                 found[position] = np.nan if unranked else float(rank)
-            writer.writerow(fields[len(KEY_COLUMNS):] + [text])
+            row = fields[len(KEY_COLUMNS):]
+            for column in text_columns:
+                row[column] = neutralised(row[column])
+            writer.writerow(row + [text])
     return found
 
 
@@ -329,19 +339,22 @@ def write_parquet(csv_path: Path, parquet_path, dtypes: pd.Series, batch_rows: i
     dtypes = pd.concat([dtypes, pd.Series({"rank": np.dtype(float)})])
     text = {name: str for name, dtype in dtypes.items() if not pd.api.types.is_numeric_dtype(dtype)}
     writer = None
-    try:
-        for batch in pd.read_csv(csv_path, chunksize=batch_rows, keep_default_na=False, na_values=[""],
-                                 dtype={**dtypes.to_dict(), **text}):
-            batch = batch.astype(dtypes)
-            batch["reason"] = reason_text(batch["reason"])
-            if writer is None:
-                schema = pa.Schema.from_pandas(batch, preserve_index=False)
-                # A text column empty in the first batch would otherwise be typed null.
-                for index, column in enumerate(schema):
-                    if pa.types.is_null(column.type):
-                        schema = schema.set(index, column.with_type(pa.string()))
-                writer = pq.ParquetWriter(parquet_path, schema)
-            writer.write_table(pa.Table.from_pandas(batch, schema=writer.schema, preserve_index=False))
-    finally:
-        if writer is not None:
-            writer.close()
+    with written_atomically(parquet_path) as temporary:
+        try:
+            for batch in pd.read_csv(csv_path, chunksize=batch_rows, keep_default_na=False, na_values=[""],
+                                     dtype={**dtypes.to_dict(), **text}):
+                batch = batch.astype(dtypes)
+                batch["reason"] = reason_text(batch["reason"])
+                for column in TEXT_COLUMNS:  # Parquet is not opened by spreadsheets: the text as read
+                    batch[column] = batch[column].map(restored)
+                if writer is None:
+                    schema = pa.Schema.from_pandas(batch, preserve_index=False)
+                    # A text column empty in the first batch would otherwise be typed null.
+                    for index, column in enumerate(schema):
+                        if pa.types.is_null(column.type):
+                            schema = schema.set(index, column.with_type(pa.string()))
+                    writer = pq.ParquetWriter(temporary, schema)
+                writer.write_table(pa.Table.from_pandas(batch, schema=writer.schema, preserve_index=False))
+        finally:
+            if writer is not None:
+                writer.close()

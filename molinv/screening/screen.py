@@ -26,6 +26,7 @@ from molinv.molecules.checks import Rejected
 from molinv.molecules.packed import MoleculeChunk, packed_chunks
 from molinv.molecules.reading import iter_records
 from molinv.molecules.route import describe_route
+from molinv.outputs import written_atomically
 
 from .ranking import write_ranking
 from .table import CAUTION, prediction_table
@@ -112,5 +113,6 @@ def screen_file(model, path, out, *, model_fingerprint: str, target: str = "ener
     counts = ranked.counts
     summary = ScreenSummary(ranked.rows, counts.get("ok", 0), counts.get("flagged", 0), counts.get("failed", 0),
                             table_path, best, describe_route(model.route_), computed)
-    (out / "summary.txt").write_text(summary.text(unit) + "\n")
+    with written_atomically(out / "summary.txt") as temporary:
+        temporary.write_text(summary.text(unit) + "\n")
     return summary

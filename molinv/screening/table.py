@@ -20,7 +20,7 @@ from ase import Atoms
 from ase.data import chemical_symbols
 
 from molinv.descriptors.base import DescriptorError
-from molinv.molecules.checks import Rejected
+from molinv.molecules.checks import MoleculeError, Rejected, check_geometry, shorten
 from molinv.molecules.units import convert_energy
 
 from .ranking import finish_ranking
@@ -82,14 +82,53 @@ def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejec
     table[std_column] = np.nan
     table["domain_distance"] = np.nan
     if usable:
-        assessed = model.assess([molecules[i] for i in usable])
+        assessed, failures = assess_apart(model, [molecules[i] for i in usable])
         table.loc[usable, value_column] = convert_energy(assessed["predicted"], "eV", unit)
         table.loc[usable, std_column] = convert_energy(assessed["std"], "eV", unit)
         table.loc[usable, "domain_distance"] = assessed["distance"] / model.applicability_.threshold_
-        for row, why in zip(usable, assessed["outside_because"]):
+        for row, why, failure in zip(usable, assessed["outside_because"], failures):
             why = "; ".join(reason for reason in (route_flags.get(row, ""), why) if reason)
-            if why:
+            if failure:
+                table.loc[row, ["status", "reason"]] = ["failed", failure]
+            elif why:
                 table.loc[row, ["status", "reason"]] = ["flagged", why]
     table = table.sort_values("record", kind="stable", na_position="last").reset_index(drop=True)
     return finish_ranking(table, unit=unit, target=target) if rank else table
 
+
+def assess_apart(model, molecules: Sequence[Atoms]) -> tuple[dict[str, np.ndarray], list[str]]:
+    """``model.assess(molecules)`` and why each molecule could not be predicted ('' when it
+    was): a geometry that fails :func:`check_geometry` (a molecule handed over without
+    reading), one the descriptor or regressor refuses, or a prediction that is not finite.
+    Failed molecules get NaN values; one failure never stops the others, since when the
+    whole batch is refused each molecule is assessed on its own."""
+    failures = [""] * len(molecules)
+    for i, atoms in enumerate(molecules):
+        try:
+            check_geometry(atoms)
+        except MoleculeError as error:
+            failures[i] = shorten(f"geometry: {error}")
+    keep = [i for i, failure in enumerate(failures) if not failure]
+    columns = {"predicted": np.full(len(molecules), np.nan), "std": np.full(len(molecules), np.nan),
+               "distance": np.full(len(molecules), np.nan), "outside_because": [""] * len(molecules)}
+    try:
+        parts = [(keep, model.assess([molecules[i] for i in keep]))] if keep else []
+    except (ValueError, MemoryError, FloatingPointError) as batch_error:  # find the molecules at fault
+        parts = []
+        for i in keep:
+            try:
+                parts.append(([i], model.assess([molecules[i]])))
+            except (ValueError, MemoryError, FloatingPointError) as error:
+                failures[i] = shorten(f"cannot be described or predicted: {error or batch_error}")
+    for rows, assessed in parts:
+        for key, column in columns.items():
+            for row, value in zip(rows, assessed[key]):
+                column[row] = value
+    for i, value in enumerate(columns["predicted"]):
+        if not failures[i] and not np.isfinite(value):
+            failures[i] = "the prediction is not finite (is the model file damaged?)"
+    for i, failure in enumerate(failures):
+        if failure:
+            columns["predicted"][i] = columns["std"][i] = np.nan
+            columns["outside_because"][i] = ""
+    return columns, failures
