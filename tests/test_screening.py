@@ -34,6 +34,13 @@ def small_model(qm9, tmp_path_factory):
     return model, path
 
 
+@pytest.fixture(scope="module")
+def geometry_model(qm9):
+    """Trained on QM9's own coordinates: candidates' coordinates are described as given."""
+    train = qm9.molecules(qm9.sample(200, seed=31, elements=["H", "C", "N", "O"]))
+    return EnergyModel(make_descriptor("atoms"), make_regressor("linear", per_atom=True)).fit(train, atomization(train))
+
+
 @pytest.mark.parametrize("jobs", [1, 2])
 def test_mixed_batch_every_row_once_with_the_right_status(tmp_path, small_model, jobs):
     # jobs=2: chunks embedded, described and predicted in two worker processes.
@@ -132,8 +139,8 @@ def far_atom_batch(qm9):
     return good + [broken]
 
 
-def test_a_molecule_that_cannot_be_described_fails_alone(qm9, small_model):
-    model, _ = small_model
+def test_a_molecule_that_cannot_be_described_fails_alone(qm9, geometry_model):
+    model = geometry_model
     table = prediction_table(model, far_atom_batch(qm9), target="atomization_energy", rank=False)
     status = dict(zip(table["name"], table["status"]))
     assert status.pop("far") == "failed"
@@ -143,17 +150,17 @@ def test_a_molecule_that_cannot_be_described_fails_alone(qm9, small_model):
     assert table.loc[table["name"] != "far", "atomization_energy_kcal/mol"].notna().all()
 
 
-def test_screen_chunk_with_an_undescribable_molecule_finishes(tmp_path, qm9, small_model):
-    model, _ = small_model
+def test_screen_chunk_with_an_undescribable_molecule_finishes(tmp_path, qm9, geometry_model):
+    model = geometry_model
     summary = screen_file(model, far_atom_batch(qm9), tmp_path / "out", model_fingerprint="m",
                           target="atomization_energy", chunk_size=5)
     assert (summary.rows, summary.failed) == (5, 1)
 
 
-def test_predictions_that_are_not_finite_are_never_ok(qm9, small_model):
-    model, _ = small_model
+def test_predictions_that_are_not_finite_are_never_ok(qm9, geometry_model):
+    model = geometry_model
     damaged = EnergyModel(model.descriptor, model.regressor)
-    damaged.descriptor_, damaged.applicability_ = model.descriptor_, model.applicability_
+    damaged.descriptor_, damaged.applicability_, damaged.route_ = model.descriptor_, model.applicability_, model.route_
     damaged.regressor_ = copy.deepcopy(model.regressor_)
     damaged.regressor_.coef_[0] = np.nan  # as in a model file edited with its checksum recomputed
     molecules = qm9.molecules(qm9.sample(3, seed=42, elements=["H", "C", "N", "O"]))
