@@ -20,6 +20,7 @@ from molinv.descriptors.base import MoleculeDescriptor, descriptor_from_settings
 from molinv.models.inputs import with_element_counts
 from molinv.models.modelfile import load_model, read_extra_arrays, save_model
 from molinv.screening.applicability import ApplicabilityCheck
+from molinv.screening.coverage import TrainingChemistry
 
 #: Descriptor choices: our name -> (module, class, parameters, what it is).
 DESCRIPTORS = {
@@ -159,6 +160,12 @@ def model_inputs(descriptor: MoleculeDescriptor, molecules, feature_store=None):
     return with_element_counts(features, molecules, descriptor.elements_)
 
 
+def standardises(regressor) -> bool:
+    """Whether a fitted regressor standardises its feature columns (so distances between molecules
+    are measured as its kernel measures them)."""
+    return bool(getattr(regressor, "scale", False))
+
+
 class EnergyModel(RegressorMixin, BaseEstimator):
     """Descriptor then regressor, as one estimator over lists of ``ase.Atoms``.
 
@@ -183,23 +190,28 @@ class EnergyModel(RegressorMixin, BaseEstimator):
         self.descriptor_ = clone(self.descriptor).fit(molecules)
         inputs = self._inputs(molecules)
         self.regressor_ = clone(self.regressor).fit(inputs, np.asarray(y, dtype=float))
-        self.applicability_ = ApplicabilityCheck().fit(inputs)
+        self.applicability_ = ApplicabilityCheck(scale=standardises(self.regressor_)).fit(inputs)
+        self.chemistry_ = TrainingChemistry().fit(molecules)
         return self
 
     def assess(self, molecules) -> dict[str, np.ndarray]:
         """Predicted energy (eV), its standard deviation (eV, NaN if the model gives none),
-        nearest-training-neighbour distance, and why each lies outside the training domain
-        ('' when it does not; see :class:`ApplicabilityCheck`)."""
+        nearest-training-neighbour distance, what each contains that no training molecule did
+        ('unseen'; see :class:`TrainingChemistry`), and why each lies outside the training domain
+        (both tests; '' when it does not; see :class:`ApplicabilityCheck`)."""
         check_is_fitted(self, "regressor_")
-        inputs = self._inputs(list(molecules))
+        molecules = list(molecules)
+        inputs = self._inputs(molecules)
         if self.gives_std:
             predicted, std = self.regressor_.predict(inputs, return_std=True)
         else:
             predicted = self.regressor_.predict(inputs)
             std = np.full(len(predicted), np.nan)
         distance = self.applicability_.distances(inputs)
+        unseen = [self.chemistry_.unseen(atoms) for atoms in molecules]
+        outside = [("; ".join(filter(None, pair))) for pair in zip(self.applicability_.reasons(inputs, distance), unseen)]
         return {"predicted": np.asarray(predicted, float), "std": np.asarray(std, float), "distance": distance,
-                "outside_because": self.applicability_.reasons(inputs, distance)}
+                "unseen": unseen, "outside_because": outside}
 
     @property
     def gives_std(self) -> bool:
@@ -224,7 +236,8 @@ class EnergyModel(RegressorMixin, BaseEstimator):
         numbers, arrays = self.applicability_.state()
         arrays.update({DESCRIPTOR_ARRAY_PREFIX + name: a for name, a in self.descriptor_.fitted_arrays().items()})
         metadata = {"descriptor": self.descriptor_.settings(), "units": {"energy": "eV", "length": "Angstrom"},
-                    "target": target, "training": training or {}, "applicability": numbers}
+                    "target": target, "training": training or {}, "applicability": numbers,
+                    "chemistry": self.chemistry_.state()}
         return save_model(path, self.regressor_, metadata, extra_arrays=arrays)
 
     @classmethod
@@ -237,4 +250,5 @@ class EnergyModel(RegressorMixin, BaseEstimator):
         model = cls(descriptor, regressor)
         model.descriptor_, model.regressor_ = descriptor, regressor
         model.applicability_ = ApplicabilityCheck.from_state(metadata["applicability"], extra)
+        model.chemistry_ = TrainingChemistry.from_state(metadata.get("chemistry"))
         return model, metadata

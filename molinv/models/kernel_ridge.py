@@ -185,11 +185,15 @@ def width_unit_value(width_unit: str, features, kernel, random_state: int) -> fl
 
 
 def fit_scaling(values: np.ndarray, scale: bool) -> tuple[np.ndarray, np.ndarray]:
-    """Per-feature mean and standard deviation (1 where constant); identity when ``scale`` is false."""
+    """Per-feature mean and standard deviation (1 where constant); identity when ``scale`` is false.
+
+    A column counts as constant when its spread is below 1e-10 of its largest magnitude:
+    the standard deviation of identical values comes out at rounding level (1e-13 for
+    36.858, measured), and dividing by it would blow up any other value in that column."""
     if not scale:
         return np.zeros(values.shape[1]), np.ones(values.shape[1])
     spread = values.std(axis=0)
-    return values.mean(axis=0), np.where(spread > 0, spread, 1.0)
+    return values.mean(axis=0), np.where(spread > 1e-10 * np.abs(values).max(axis=0, initial=0.0), spread, 1.0)
 
 
 class _KernelRidgeBase(BaselineMixin, RegressorMixin, BaseEstimator):

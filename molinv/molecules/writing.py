@@ -120,10 +120,16 @@ def _without_overlong_contacts(mol: Chem.Mol) -> Chem.Mol:
     return editable.GetMol()
 
 
-def _rdkit_molecule(atoms: Atoms, length_factor: float, energy_keys, energy_factor: float) -> Chem.Mol:
+def bonded_molecule(atoms: Atoms) -> Chem.Mol:
+    """RDKit molecule of ``atoms`` with bonds and its coordinates (Angstrom): bond orders from
+    ``info['smiles']`` when known, else perceived from the geometry at ``info['charge']``."""
     lines = [str(len(atoms)), ""]
     lines += [f"{s} {x:.10f} {y:.10f} {z:.10f}" for s, (x, y, z) in zip(atoms.get_chemical_symbols(), atoms.positions)]
-    mol = _bonded_from_xyz("\n".join(lines) + "\n", atoms.info.get("smiles"), int(atoms.info.get("charge", 0)))
+    return _bonded_from_xyz("\n".join(lines) + "\n", atoms.info.get("smiles"), int(atoms.info.get("charge", 0)))
+
+
+def _rdkit_molecule(atoms: Atoms, length_factor: float, energy_keys, energy_factor: float) -> Chem.Mol:
+    mol = bonded_molecule(atoms)
     conformer = mol.GetConformer()
     for i, position in enumerate(atoms.positions / length_factor):
         conformer.SetAtomPosition(i, position.tolist())

@@ -7,7 +7,13 @@ quantile of the training set's own values (the usual nearest-neighbour
 applicability domain; Sahigara et al., "Comparison of different approaches to define the
 applicability domain of QSAR models", Molecules 17, 4791, 2012; from memory).
 
-* Global descriptors: Euclidean distance between standardised molecule vectors.
+* Global descriptors: Euclidean distance between molecule vectors as the model's kernel
+  sees them: standardised per column where the model standardises them (``scale``),
+  raw otherwise. Standardising the raw bag-of-bonds columns, as this check once did,
+  divided by spreads of floating-point noise (1e-13 for a bag entry that every training
+  molecule shares), so ethanol came out 1e12 times the threshold; columns whose spread
+  is at the noise level now count as constant (see
+  :func:`molinv.models.kernel_ridge.fit_scaling`).
 * Atom-centred descriptors: for every atom the distance to the nearest training
   atom of the same element in another molecule; a molecule's value is its
   largest atom value (one unfamiliar environment is enough to flag it).
@@ -26,6 +32,7 @@ from ase.data import chemical_symbols
 
 from molinv.descriptors.base import AtomFeatures
 from molinv.models.inputs import CountedFeatures, element_counts
+from molinv.models.kernel_ridge import fit_scaling
 
 #: Training quantile of nearest-neighbour distances beyond which a candidate is flagged
 #: (common practice, no source: 0.95-0.99 are usual).
@@ -68,10 +75,11 @@ class ApplicabilityCheck:
     """
 
     def __init__(self, quantile: float = DEFAULT_QUANTILE, max_references: int = DEFAULT_MAX_REFERENCES,
-                 random_state: int = 0):
+                 random_state: int = 0, scale: bool = False):
         self.quantile = quantile
         self.max_references = max_references
         self.random_state = random_state
+        self.scale = scale
 
     def _subsample(self, n: int, rng) -> np.ndarray:
         return np.arange(n) if n <= self.max_references else np.sort(rng.choice(n, self.max_references, replace=False))
@@ -91,8 +99,7 @@ class ApplicabilityCheck:
         else:
             self.per_atom_ = False
             values = X.values if isinstance(X, CountedFeatures) else np.asarray(X, float)
-            self.mean_, spread = values.mean(axis=0), values.std(axis=0)
-            self.scale_ = np.where(spread > 0, spread, 1.0)
+            self.mean_, self.scale_ = fit_scaling(values, self.scale)
             scaled = (values - self.mean_) / self.scale_
             kept = self._subsample(len(scaled), rng)
             self.references_ = {0: (scaled[kept], kept)}
@@ -142,7 +149,7 @@ class ApplicabilityCheck:
     def state(self) -> tuple[dict, dict]:
         """(numbers, arrays) describing the fitted check, for a model file."""
         numbers = {"quantile": float(self.quantile), "max_references": int(self.max_references),
-                   "random_state": int(self.random_state), "per_atom": bool(self.per_atom_),
+                   "random_state": int(self.random_state), "scale": bool(self.scale), "per_atom": bool(self.per_atom_),
                    "threshold": self.threshold_}
         arrays = {"training_distances": self.training_distances_, "count_elements": self.count_elements_,
                   "max_counts": self.max_counts_}
@@ -154,7 +161,8 @@ class ApplicabilityCheck:
 
     @classmethod
     def from_state(cls, numbers: dict, arrays: dict) -> "ApplicabilityCheck":
-        check = cls(numbers["quantile"], numbers["max_references"], numbers["random_state"])
+        # Files written before 'scale' was recorded standardised every column; their arrays say how.
+        check = cls(numbers["quantile"], numbers["max_references"], numbers["random_state"], numbers.get("scale", True))
         check.per_atom_, check.threshold_ = bool(numbers["per_atom"]), float(numbers["threshold"])
         check.training_distances_ = arrays["training_distances"]
         check.count_elements_, check.max_counts_ = arrays["count_elements"], arrays["max_counts"]

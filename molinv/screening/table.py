@@ -18,7 +18,8 @@ from ase import Atoms
 from ase.data import chemical_symbols
 
 from molinv.descriptors.base import DescriptorError
-from molinv.molecules.checks import Rejected
+from molinv.molecules.checks import MoleculeError, Rejected
+from molinv.molecules.electrons import electronic_state
 from molinv.molecules.units import convert_energy
 
 from .ranking import finish_ranking
@@ -28,7 +29,8 @@ CAUTION = (
     "local regulations or expert review."
 )
 
-COLUMNS = ["record", "name", "smiles", "formula", "n_atoms", "geometry_source", "status", "reason"]
+COLUMNS = ["record", "name", "smiles", "formula", "n_atoms", "charge", "multiplicity", "geometry_source", "status",
+           "reason"]
 
 
 def describable(descriptor, atoms: Atoms) -> str:
@@ -43,6 +45,16 @@ def describable(descriptor, atoms: Atoms) -> str:
         # The message counts positions within the one-molecule list checked here; drop that.
         return re.sub(r" \(position 0\)| at position 0", "", str(error))
     return ""
+
+
+def stated_state(atoms: Atoms) -> dict:
+    """The molecule's charge and multiplicity as table cells (empty where they cannot describe
+    its electrons: the refusal says why)."""
+    try:
+        charge, multiplicity = electronic_state(atoms)
+    except MoleculeError:
+        return {"charge": np.nan, "multiplicity": np.nan}
+    return {"charge": charge, "multiplicity": multiplicity}
 
 
 def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejected] = (), unit: str = "kcal/mol",
@@ -60,15 +72,16 @@ def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejec
     for atoms in molecules:
         row = {"record": atoms.info.get("record"), "name": atoms.info.get("name"),
                "smiles": atoms.info.get("smiles", ""), "formula": atoms.get_chemical_formula(), "n_atoms": len(atoms),
-               "geometry_source": atoms.info.get("geometry_source", "file"), "status": "ok", "reason": ""}
-        refusal = describable(model.descriptor_, atoms)
+               **stated_state(atoms), "geometry_source": atoms.info.get("geometry_source", "file"), "status": "ok",
+               "reason": ""}
+        refusal = describable(model.descriptor_, atoms) or model.chemistry_.refusal(atoms)
         if refusal:
             row.update(status="failed", reason=refusal)
         else:
             usable.append(len(rows))
         rows.append(row)
-    rows += [{"record": r.record, "name": r.name, "smiles": "", "formula": "", "n_atoms": np.nan,
-              "geometry_source": "", "status": "failed", "reason": r.reason} for r in rejected]
+    rows += [{"record": r.record, "name": r.name, "smiles": "", "formula": "", "n_atoms": np.nan, "charge": np.nan,
+              "multiplicity": np.nan, "geometry_source": "", "status": "failed", "reason": r.reason} for r in rejected]
     table = pd.DataFrame(rows, columns=COLUMNS)
     value_column, std_column = f"{target}_{unit}", f"std_{unit}"
     table[value_column] = np.nan
