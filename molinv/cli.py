@@ -364,6 +364,9 @@ def run_label(args) -> int:
     report_rejected(result)
     if not result.molecules:
         raise CommandError("no usable molecules to compute")
+    if args.multiplicity is not None:
+        for atoms in result.molecules:
+            atoms.info["multiplicity"] = args.multiplicity
     with executor(args) if args.cluster else nullcontext() as runner:
         summary = label_molecules(result.molecules, method, args.out, n_jobs=args.jobs, chunk_size=args.chunk_size,
                                   retry_failed=args.retry_failed, progress=True, executor=runner)
@@ -598,13 +601,20 @@ def build_parser() -> argparse.ArgumentParser:
                              description="Compute the total and atomization energy of every molecule with PySCF or "
                                          "tblite, in parallel single-thread processes or on a Dask cluster; each "
                                          "chunk's rows are written as it finishes (via OUT.chunks/), failures keep "
-                                         "their reason, and a rerun skips names already in the file. Closed-shell "
-                                         "molecules only. " + UNITS_HELP)
+                                         "their reason, and a rerun skips names already in the file. Each molecule is "
+                                         "computed at its charge and spin multiplicity (columns charge and "
+                                         "multiplicity): restricted for closed shells, unrestricted for open "
+                                         "shells. " + UNITS_HELP)
     add_input_options(label)
     add_method_options(label)
     label.add_argument("--jobs", type=int, default=1, help="worker processes, one thread each (default 1)")
     label.add_argument("--chunk-size", type=int, default=None,
                        help="molecules per task (default 1 for hf/dft, 16 for xtb)")
+    label.add_argument("--multiplicity", type=int, default=None,
+                       help="spin multiplicity 2S+1 to compute every molecule at, overriding the input's (default: "
+                            "the input's: SMILES radicals, an extended-XYZ or CSV 'multiplicity' field; where it "
+                            "cannot say, singlet, or doublet for an odd electron count). SMILES O=O reads as a "
+                            "singlet: give 3 for ground-state O2")
     label.add_argument("--retry-failed", action="store_true", help="recompute molecules whose earlier row failed")
     label.add_argument("--out", type=Path, required=True, help="labels file (.csv), appended to")
     add_execution_options(label, jobs=False)

@@ -4,9 +4,13 @@ Both codes are optional (``pip install 'molinv[quantum]'``) and imported only wh
 a calculation runs. They work in Hartree and Bohr; every energy leaving this module
 is converted to eV, the internal unit, with the Hartree-valued number kept beside it.
 
-Only closed-shell molecules are computed (an odd electron count is refused with
-its reason). Free atoms for atomization energies are computed spin-polarised
-(unrestricted) in their ground-state multiplicity, with the same method and basis.
+Each molecule is computed at its charge and spin multiplicity (``info['charge']``,
+``info['multiplicity']``; see :mod:`molinv.molecules.electrons` for how they are read and
+defaulted): closed shells restricted (RHF/RKS), open shells unrestricted (UHF/UKS);
+tblite takes the charge and the number of unpaired electrons. Free atoms for atomization
+energies are computed spin-polarised (unrestricted) in their ground-state multiplicity,
+with the same method and basis; an ion gets no atomization energy (neutral atoms do not
+add up to it).
 
 PySCF names: 'B3LYPG' is B3LYP with the VWN3 (VWN-RPA) local correlation used by
 Gaussian, and therefore by QM9; PySCF's 'B3LYP5' uses VWN5 (see PySCF's
@@ -22,6 +26,8 @@ import numpy as np
 from ase import Atoms
 from ase.data import chemical_symbols
 
+from molinv.molecules.checks import MoleculeError
+from molinv.molecules.electrons import electronic_state
 from molinv.molecules.units import ENERGY_UNITS, LENGTH_UNITS
 
 KINDS = ("hf", "dft", "xtb")
@@ -99,33 +105,31 @@ class LabelMethod:
         return asdict(self)
 
 
-def electron_count(numbers, charge: int = 0) -> int:
-    return int(np.sum(numbers)) - int(charge)
+def computed_state(atoms: Atoms) -> tuple[int, int]:
+    """(charge, multiplicity) the molecule is computed at; a LabelFailure when they cannot be."""
+    try:
+        return electronic_state(atoms)
+    except MoleculeError as error:
+        raise LabelFailure(str(error)) from None
 
 
-def check_closed_shell(atoms: Atoms) -> None:
-    electrons = electron_count(atoms.numbers)
-    if electrons % 2:
-        raise LabelFailure(f"odd number of electrons ({electrons}): open shell; only closed-shell molecules are computed")
-
-
-def _pyscf_molecule(numbers, positions_angstrom, method: LabelMethod, spin: int):
+def _pyscf_molecule(numbers, positions_angstrom, method: LabelMethod, spin: int, charge: int = 0):
     from pyscf import gto
 
     symbols = [chemical_symbols[z] for z in numbers]
     try:
         return gto.M(atom=list(zip(symbols, map(tuple, positions_angstrom))), basis=method.basis, unit="Angstrom",
-                     charge=0, spin=spin, cart=method.cartesian, verbose=0)
+                     charge=charge, spin=spin, cart=method.cartesian, verbose=0)
     except Exception as error:  # PySCF reports missing basis functions with several exception types
         raise LabelFailure(f"PySCF cannot build the basis {method.basis!r} for {' '.join(sorted(set(symbols)))}: "
                            f"{type(error).__name__}: {error}") from None
 
 
-def _pyscf_energy(numbers, positions_angstrom, method: LabelMethod, spin: int) -> float:
-    """Total energy, Hartree; restricted for closed shells, unrestricted otherwise."""
+def _pyscf_energy(numbers, positions_angstrom, method: LabelMethod, spin: int, charge: int = 0) -> float:
+    """Total energy, Hartree; restricted for closed shells, unrestricted otherwise (``spin`` = 2S)."""
     from pyscf import dft, scf
 
-    molecule = _pyscf_molecule(numbers, positions_angstrom, method, spin)
+    molecule = _pyscf_molecule(numbers, positions_angstrom, method, spin, charge)
     open_shell = spin > 0
     if method.kind == "hf":
         solver = scf.UHF(molecule) if open_shell else scf.RHF(molecule)
@@ -144,7 +148,7 @@ def _pyscf_energy(numbers, positions_angstrom, method: LabelMethod, spin: int) -
     return float(energy)
 
 
-def _xtb_energy(numbers, positions_angstrom, unpaired: int) -> float:
+def _xtb_energy(numbers, positions_angstrom, unpaired: int, charge: int = 0) -> float:
     """GFN2-xTB total energy, Hartree (tblite takes Bohr)."""
     from tblite.interface import Calculator
 
@@ -153,7 +157,7 @@ def _xtb_energy(numbers, positions_angstrom, unpaired: int) -> float:
         raise LabelFailure(f"unsupported element for GFN2-xTB (Z 1-{XTB_MAX_Z}): {', '.join(too_heavy)}")
     positions_bohr = np.asarray(positions_angstrom, float) / LENGTH_UNITS["Bohr"]
     try:
-        calculator = Calculator("GFN2-xTB", np.asarray(numbers), positions_bohr, charge=0.0, uhf=unpaired)
+        calculator = Calculator("GFN2-xTB", np.asarray(numbers), positions_bohr, charge=float(charge), uhf=unpaired)
         calculator.set("verbosity", 0)
         return float(calculator.singlepoint().get("energy"))
     except Exception as error:  # tblite raises its own error types for no convergence and bad input
@@ -161,11 +165,11 @@ def _xtb_energy(numbers, positions_angstrom, unpaired: int) -> float:
 
 
 def total_energy_hartree(atoms: Atoms, method: LabelMethod) -> float:
-    """Total electronic energy of a closed-shell molecule, Hartree (no zero-point energy)."""
-    check_closed_shell(atoms)
+    """Total electronic energy at the molecule's charge and multiplicity, Hartree (no zero-point energy)."""
+    charge, multiplicity = computed_state(atoms)
     if method.kind == "xtb":
-        return _xtb_energy(atoms.numbers, atoms.positions, 0)
-    return _pyscf_energy(atoms.numbers, atoms.positions, method, 0)
+        return _xtb_energy(atoms.numbers, atoms.positions, multiplicity - 1, charge)
+    return _pyscf_energy(atoms.numbers, atoms.positions, method, multiplicity - 1, charge)
 
 
 @lru_cache(maxsize=None)
@@ -181,6 +185,10 @@ def atom_energy_hartree(symbol: str, method: LabelMethod) -> float:
 
 
 def atomization_energy_ev(atoms: Atoms, total_hartree: float, method: LabelMethod) -> float:
-    """Sum of free-atom energies minus the molecule's, eV (positive for a bound molecule)."""
+    """Sum of free-atom energies minus the molecule's, eV (positive for a bound molecule); refused for ions."""
+    charge, _ = computed_state(atoms)
+    if charge:
+        raise LabelFailure(f"no atomization energy for an ion (charge {charge:+d}): free neutral atoms do not add "
+                           "up to it; the total energy is given")
     atoms_hartree = sum(atom_energy_hartree(symbol, method) for symbol in atoms.get_chemical_symbols())
     return (atoms_hartree - total_hartree) * ENERGY_UNITS["Hartree"]

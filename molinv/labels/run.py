@@ -8,8 +8,11 @@ chunks can run in joblib workers here or on a cluster's workers.
 (this process, local processes or a Dask cluster), appends each finished chunk's rows
 to a CSV labels file and skips the names already in it, so a restarted run computes
 nothing twice.
-Columns (our layout): name, formula, method, status ('ok' or 'failed'),
-energy_Hartree, energy_eV, atomization_energy_eV, seconds, reason.
+Columns (our layout): name, formula, charge, multiplicity (the state computed), method,
+status ('ok' or 'failed'), energy_Hartree, energy_eV, atomization_energy_eV, seconds, reason.
+Files written before charge and multiplicity were columns are given them on reading
+(charge 0 and, where computed, multiplicity 1: all that could be computed then) and
+rewritten with them before new rows are added.
 """
 
 from __future__ import annotations
@@ -33,11 +36,13 @@ from molinv.cluster.chunks import InProcess, LocalProcesses, chunked, folder_bes
 from molinv.molecules.packed import MoleculeChunk, pack
 from molinv.molecules.units import ENERGY_UNITS
 
-from .methods import LabelError, LabelFailure, LabelMethod, atomization_energy_ev, total_energy_hartree
+from .methods import LabelError, LabelFailure, LabelMethod, atomization_energy_ev, computed_state, total_energy_hartree
 
-COLUMNS = ("name", "formula", "method", "status", "energy_Hartree", "energy_eV", "atomization_energy_eV",
-           "seconds", "reason")
-NUMBER_COLUMNS = ("energy_Hartree", "energy_eV", "atomization_energy_eV", "seconds")
+COLUMNS = ("name", "formula", "charge", "multiplicity", "method", "status", "energy_Hartree", "energy_eV",
+           "atomization_energy_eV", "seconds", "reason")
+#: The columns of files written before the charge and multiplicity were recorded.
+COLUMNS_WITHOUT_STATE = tuple(c for c in COLUMNS if c not in ("charge", "multiplicity"))
+NUMBER_COLUMNS = ("charge", "multiplicity", "energy_Hartree", "energy_eV", "atomization_energy_eV", "seconds")
 #: Thread-count variables of OpenMP and the BLAS libraries, set to 1 in worker processes:
 #: two threads per process on 2 cores made PySCF and tblite 2-20x slower (as measured when issue 7 was filed).
 THREAD_VARIABLES = ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS", "BLIS_NUM_THREADS")
@@ -58,10 +63,12 @@ def molecule_names(molecules: Sequence[Atoms]) -> list[str]:
 
 def label_one(atoms: Atoms, name: str, method: LabelMethod) -> dict:
     """One row: the energies of ``atoms``, or status 'failed' with the reason."""
-    row = {"name": name, "formula": atoms.get_chemical_formula(), "method": method.name, "status": "ok",
-           "energy_Hartree": np.nan, "energy_eV": np.nan, "atomization_energy_eV": np.nan, "reason": ""}
+    row = {"name": name, "formula": atoms.get_chemical_formula(), "charge": np.nan, "multiplicity": np.nan,
+           "method": method.name, "status": "ok", "energy_Hartree": np.nan, "energy_eV": np.nan,
+           "atomization_energy_eV": np.nan, "reason": ""}
     started = time.perf_counter()
     try:
+        row["charge"], row["multiplicity"] = computed_state(atoms)
         total = total_energy_hartree(atoms, method)
         row["energy_Hartree"] = total
         row["energy_eV"] = total * ENERGY_UNITS["Hartree"]
@@ -106,6 +113,8 @@ def _finished_rows(path: Path, method: LabelMethod | None) -> pd.DataFrame:
                             na_values=missing)
     except (pd.errors.ParserError, pd.errors.EmptyDataError) as error:
         raise LabelError(f"{path}: not a molinv labels file ({error})") from None
+    if tuple(table.columns) == COLUMNS_WITHOUT_STATE:
+        table = table.assign(charge=0, multiplicity=np.where(table["status"] == "ok", 1.0, np.nan))[list(COLUMNS)]
     if tuple(table.columns) != COLUMNS:
         raise LabelError(f"{path}: columns {list(table.columns)} are not those of a molinv labels file")
     methods = set(table["method"])
@@ -148,6 +157,8 @@ def label_molecules(molecules: Sequence[Atoms], method: LabelMethod, path, *, n_
     molecules = list(molecules)
     names = molecule_names(molecules)
     finished = _finished_rows(path, method)
+    if _header(path) == ",".join(COLUMNS_WITHOUT_STATE):
+        finished.to_csv(path, index=False)  # given the state columns, so that new rows line up
     path.parent.mkdir(parents=True, exist_ok=True)
     if not path.exists() or path.stat().st_size == 0:
         _append(path, [], header=True)
@@ -187,6 +198,13 @@ def label_packed(chunk: MoleculeChunk, method: LabelMethod) -> pd.DataFrame:
 def _named_chunk(molecules: list[Atoms], names: list[str]) -> MoleculeChunk:
     # Names travel explicitly: an unnamed molecule's name comes from its place in the whole input.
     return replace(pack(molecules), names=np.array(names, dtype=str), named=np.ones(len(names), dtype=bool))
+
+
+def _header(path: Path) -> str:
+    if not path.exists():
+        return ""
+    with open(path) as handle:
+        return handle.readline().rstrip("\r\n")
 
 
 def _done_names(finished: pd.DataFrame, retry_failed: bool) -> set[str]:
