@@ -93,14 +93,16 @@ def _bonded_from_xyz(xyz_block: str, smiles: str | None, charge: int) -> Chem.Mo
                 return mol
             except (ValueError, RuntimeError, Chem.rdchem.MolSanitizeException):
                 continue
-    perceived = Chem.Mol(connected)
-    try:
-        rdDetermineBonds.DetermineBondOrders(perceived, charge=charge)
-        Chem.SanitizeMol(perceived)
-        return perceived
-    except (ValueError, RuntimeError, Chem.rdchem.MolSanitizeException):
-        # Bond orders cannot always be assigned (radicals, odd charge states); connectivity still can.
-        return connected
+    for candidate in (connected, _without_overlong_contacts(connected)):
+        perceived = Chem.Mol(candidate)
+        try:
+            rdDetermineBonds.DetermineBondOrders(perceived, charge=charge)
+            Chem.SanitizeMol(perceived)
+            return perceived
+        except (ValueError, RuntimeError, Chem.rdchem.MolSanitizeException):
+            continue
+    # Bond orders cannot always be assigned (radicals, odd charge states); connectivity still can.
+    return connected
 
 
 def _without_overlong_contacts(mol: Chem.Mol) -> Chem.Mol:
