@@ -394,40 +394,28 @@ def add_strategy_options(parser, choices) -> None:
 
 
 def run_pick(args) -> int:
-    import pandas as pd
-
-    from .labels.choose import STRATEGIES, choose_next
-    from .molecules.units import convert_energy
+    from .labels.choose import STRATEGIES, pick_table
     from .recipes import EnergyModel
 
     model, metadata = EnergyModel.load(args.model_file)
     result = read_input(args, require_energy=False)
     report_rejected(result)
-    if args.k > len(result.molecules):
-        raise CommandError(f"cannot pick {args.k} of {len(result.molecules)} candidates")
     labelled = None
     if args.labelled:
         from .molecules import read_molecules
 
         labelled = read_molecules(args.labelled).molecules
-    choice = choose_next(model, result.molecules, args.k, shortlist_factor=args.shortlist, labelled=labelled,
-                         strategy=args.strategy, reference_size=args.reference, seed=args.seed)
-    order = {int(p): rank + 1 for rank, p in enumerate(choice["picked"])}
-    table = pd.DataFrame({
-        "name": [str(a.info.get("name", f"molecule_{i}")) for i, a in enumerate(result.molecules)],
-        "formula": [a.get_chemical_formula() for a in result.molecules],
-        f"{metadata['target']}_{args.unit}": convert_energy(choice["predicted"], "eV", args.unit),
-        f"std_{args.unit}": convert_energy(choice["std"], "eV", args.unit),
-        "pick_order": [order.get(i, "") for i in range(len(result.molecules))],
-        "reason": choice["reason"],
-    })
+    table = pick_table(model, result.molecules, result.rejected, args.k, unit=args.unit, target=metadata["target"],
+                       include_far=args.include_far, shortlist_factor=args.shortlist, labelled=labelled,
+                       strategy=args.strategy, reference_size=args.reference, seed=args.seed)
     table.to_csv(args.out, index=False)
-    picked = table[table["pick_order"] != ""].sort_values("pick_order").drop(columns="reason")
-    print(f"picked {args.k} of {len(table)} candidates ({STRATEGIES[args.strategy]}) -> {args.out}")
-    print(picked.to_string(index=False, float_format=lambda v: f"{v:.2f}"))
-    skipped = int((table["reason"] != "").sum())
-    if skipped:
-        print(f"{skipped} candidates not describable by this model (reason column in {args.out})")
+    picked = table[table["pick_order"].notna()].sort_values("pick_order")
+    shown = ["pick_order", "record", "name", "formula", f"{metadata['target']}_{args.unit}", f"std_{args.unit}", "status"]
+    print(f"picked {args.k} of {len(table)} rows ({STRATEGIES[args.strategy]}) -> {args.out}")
+    print(picked[shown].to_string(index=False, float_format=lambda v: f"{v:.2f}"))
+    counts = table["status"].value_counts().to_dict()
+    print("rows: " + ", ".join(f"{n} {s}" for s, n in counts.items()) + " (failed rows are never picked; "
+          f"the reason column of {args.out} says why)")
     return 0
 
 
@@ -623,13 +611,18 @@ def build_parser() -> argparse.ArgumentParser:
     pick = verbs.add_parser("pick", help="choose the next k candidates worth computing",
                             description="Predict every candidate with a model file and pick k of them: by default "
                                         "among the most uncertain, spread out in descriptor space (greedy farthest "
-                                        "point); see --strategy. " + UNITS_HELP)
+                                        "point); see --strategy. The table has every input row once, with its status; "
+                                        "failed rows (unreadable, elements or charge/spin state outside the "
+                                        "training set) are never picked. " + UNITS_HELP)
     pick.add_argument("model_file", type=Path, help="model file written by 'molinv fit' (model kernel or large)")
     add_input_options(pick)
     pick.add_argument("--k", type=int, default=10, help="how many to pick (default 10)")
     pick.add_argument("--labelled", type=Path, help="molecules already computed: candidates near them count as near")
     add_strategy_options(pick, ["uncertain", "spread", "variance"])
     pick.add_argument("--seed", type=int, default=0, help="seed of the reference sample of --strategy variance")
+    pick.add_argument("--include-far", action="store_true",
+                      help="also pick candidates with more than 1.5 times the non-hydrogen atoms of any training "
+                           "molecule (default: not picked, one label does not make the model fit for them)")
     pick.add_argument("--unit", default="kcal/mol", help="energy unit of the output (default kcal/mol)")
     pick.add_argument("--out", type=Path, required=True, help="table of all candidates with pick_order (.csv)")
     pick.set_defaults(run=run_pick)
