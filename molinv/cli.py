@@ -248,6 +248,7 @@ def run_predict(args) -> int:
     from .cluster.chunks import folder_beside
     from .recipes import EnergyModel
     from .screening import CAUTION, prediction_table
+    from .screening.ranking import ranking_note
 
     model, metadata = EnergyModel.load(args.model_file)
     if args.cluster or args.jobs != 1:
@@ -260,6 +261,7 @@ def run_predict(args) -> int:
     table.to_csv(args.out, index=False)
     counts = table["status"].value_counts().to_dict()
     print(f"{len(table)} rows -> {args.out}: " + ", ".join(f"{n} {s}" for s, n in counts.items()))
+    print(f"table {ranking_note(metadata['target'])}")
     print(f"Caution: {CAUTION}")
     return 0
 

@@ -26,7 +26,7 @@ from molinv.molecules.checks import Rejected
 from molinv.molecules.packed import MoleculeChunk, packed_chunks
 from molinv.molecules.reading import iter_records
 
-from .ranking import write_ranking
+from .ranking import RANK_COLUMN, ranking_note, write_ranking
 from .table import CAUTION, prediction_table
 
 
@@ -42,12 +42,18 @@ class ScreenSummary:
     failed: int
     table_path: Path
     top: pd.DataFrame
+    #: How the table is ordered (:func:`~molinv.screening.ranking.ranking_note`).
+    ranking: str
     #: Chunks computed by this call (finished ones from an earlier run are skipped).
     computed: list[ChunkReport] = field(default_factory=list)
 
     def text(self, unit: str) -> str:
         lines = [f"{self.rows} candidates: {self.ok} ok, {self.flagged} flagged, {self.failed} failed",
-                 f"ranked table: {self.table_path}", "most stable predicted (ok rows):"]
+                 f"table: {self.table_path}, {self.ranking}"]
+        if RANK_COLUMN in self.top.columns:
+            lines.append("most stable predicted isomer of each formula (ok rows, formulas in text order):")
+        else:
+            lines.append("first ok rows:")
         lines += ["  " + line for line in self.top.to_string(index=False, float_format=lambda v: f"{v:.2f}").splitlines()]
         lines.append(f"Caution: {CAUTION}")
         return "\n".join(lines)
@@ -104,9 +110,10 @@ def screen_file(model, path, out, *, model_fingerprint: str, target: str = "ener
     table_path = out / "ranked.csv"
     ranked = write_ranking(out / "chunks", table_path, unit=unit, target=target, top=top, progress=progress,
                            parquet_path=out / "ranked.parquet" if parquet else None)
-    best = ranked.top.reindex(columns=["rank", "name", "formula", f"{target}_{unit}", f"std_{unit}"])
+    shown = [RANK_COLUMN, "name", "formula", f"{target}_{unit}", f"std_{unit}"]
+    best = ranked.top.reindex(columns=[c for c in shown if c in ranked.top.columns])
     counts = ranked.counts
     summary = ScreenSummary(ranked.rows, counts.get("ok", 0), counts.get("flagged", 0), counts.get("failed", 0),
-                            table_path, best, computed)
+                            table_path, best, ranking_note(target), computed)
     (out / "summary.txt").write_text(summary.text(unit) + "\n")
     return summary
