@@ -226,19 +226,21 @@ def run_describe(args) -> int:
 
 
 def run_fit(args) -> int:
-    from .evaluation.curves import chosen_hyperparameters
+    from .evaluation.curves import fit_summary
+    from .molecules.electrons import state_name
     from .molecules.units import convert_energy
 
     molecules, energies = labelled(args)
     model = energy_model(args.descriptor, args.model, args).fit(molecules, energies)
-    path = model.save(args.out, target=energy_key(args),
-                      training={"source": str(args.input), "n_molecules": len(molecules)})
+    target = energy_key(args)
+    path = model.save(args.out, target=target, training={"source": str(args.input), "n_molecules": len(molecules)})
     print(f"model fitted on {len(molecules)} molecules -> {path}")
-    chosen = chosen_hyperparameters(model.regressor_)
-    if chosen:
-        print("hyperparameters: " + ", ".join(f"{k}={v:g}" for k, v in chosen.items()))
+    for line in fit_summary(model.regressor_):
+        print(line)
     spread = convert_energy(float(energies.std()), "eV", "kcal/mol")
-    print(f"training energies spread (standard deviation): {spread:.2f} kcal/mol")
+    print(f"training {target} values spread (standard deviation): {spread:.2f} kcal/mol")
+    states = ", ".join(state_name(*state) for state in model.chemistry_.states_)
+    print(f"trained on {states} molecules; predict and screen fail molecules in other charge or spin states")
     return 0
 
 
