@@ -111,8 +111,15 @@ def write_rejected(rejected, path: Path) -> None:
 
 
 def run_check(args) -> int:
+    from collections import Counter
+
+    from .molecules.electrons import electronic_state, state_name
+
     result = read_input(args, require_energy=args.require_energy)
     report_rejected(result, limit=len(result.rejected))
+    states = Counter(state_name(*electronic_state(atoms)) for atoms in result.molecules)
+    if states:
+        print("charge and spin: " + ", ".join(f"{n} {state}" for state, n in states.most_common()))
     if args.rejected_out:
         write_rejected(result.rejected, args.rejected_out)
         print(f"rejected records written to {args.rejected_out}")

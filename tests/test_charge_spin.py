@@ -134,3 +134,12 @@ def test_charged_training_set_is_recorded(qm9):
     assert model.chemistry_.states_ == [(-1, 1), (0, 1), (1, 1)]
     assert model.chemistry_.refusal(embed_smiles("CCCC(=O)[O-]")) == ""
     assert "charge -2 singlet" in model.chemistry_.refusal(embed_smiles("[O-]C(=O)[O-]"))
+
+
+def test_check_reports_the_states(tmp_path, capsys):
+    from molinv.cli import main
+
+    path = tmp_path / "mixed.csv"
+    path.write_text("name,smiles\nethanol,CCO\nacetate,CC(=O)[O-]\nmethyl,[CH3]\noxygen,O=O\n")
+    assert main(["check", str(path)]) == 0
+    assert "charge and spin: 2 neutral singlet, 1 charge -1 singlet, 1 neutral doublet" in capsys.readouterr().out
