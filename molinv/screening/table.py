@@ -1,9 +1,11 @@
 """Predictions for candidate molecules as one table: every input row once, with a status.
 
 Statuses: ``ok``; ``flagged`` (predicted, but the reason says why to distrust
-it: far from every training molecule, or a name already used by an earlier
-row); ``failed`` (not predicted: unreadable record, or an element the model was
-not trained on). Geometries made from SMILES say so in ``geometry_source``: a
+it: far from every training molecule, chemistry no training molecule showed (see
+:mod:`molinv.screening.coverage`), or a name already used by an earlier row);
+``failed`` (not predicted: unreadable record, an element the model was not trained
+on, or a charge/spin state it was not trained on: no descriptor here sees charge or
+spin, so the number would belong to another species). Geometries made from SMILES say so in ``geometry_source``: a
 model trained on quantum-chemistry geometries is less accurate on force-field ones.
 """
 
