@@ -380,7 +380,8 @@ def run_label(args) -> int:
             atoms.info["multiplicity"] = args.multiplicity
     with executor(args) if args.cluster else nullcontext() as runner:
         summary = label_molecules(result.molecules, method, args.out, n_jobs=args.jobs, chunk_size=args.chunk_size,
-                                  retry_failed=args.retry_failed, progress=True, executor=runner)
+                                  retry_failed=args.retry_failed, progress=True, executor=runner,
+                                  geometries=args.out.with_suffix(".xyz"))
     print(f"{method.name}: {summary.text()}")
     table = read_labels(args.out, method)
     failed = table[table["status"] == "failed"]
@@ -389,6 +390,8 @@ def run_label(args) -> int:
     if len(failed) > 10:
         print(f"  ... and {len(failed) - 10} more (status 'failed' in {args.out})")
     print("energies in Hartree and eV; atomization energies (eV) from free atoms computed with the same method")
+    print(f"computed geometries with their energies, charge and multiplicity: {args.out.with_suffix('.xyz')} "
+          f"(molinv fit {args.out.with_suffix('.xyz')} --energy-key atomization_energy)")
     return 0
 
 
@@ -615,7 +618,8 @@ def build_parser() -> argparse.ArgumentParser:
                             "cannot say, singlet, or doublet for an odd electron count). SMILES O=O reads as a "
                             "singlet: give 3 for ground-state O2")
     label.add_argument("--retry-failed", action="store_true", help="recompute molecules whose earlier row failed")
-    label.add_argument("--out", type=Path, required=True, help="labels file (.csv), appended to")
+    label.add_argument("--out", type=Path, required=True,
+                       help="labels file (.csv), appended to; the computed geometries go beside it (.xyz)")
     add_execution_options(label, jobs=False)
     label.set_defaults(run=run_label)
 

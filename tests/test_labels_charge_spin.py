@@ -13,7 +13,7 @@ from ase import Atoms
 from molinv.cli import main
 from molinv.labels import LabelMethod, label_chunk, label_molecules, read_labels
 from molinv.labels.run import COLUMNS_WITHOUT_STATE
-from molinv.molecules import embed_smiles
+from molinv.molecules import embed_smiles, read_molecules
 from molinv.molecules.units import LENGTH_UNITS
 
 HF = LabelMethod("hf", basis="STO-3G")
@@ -92,3 +92,29 @@ def test_a_labels_file_without_state_columns_is_continued(tmp_path, qm9):
     assert label_molecules(molecules, LabelMethod("xtb"), path).computed == 1
     table = read_labels(path)
     assert len(table) == 2 and list(table["charge"]) == [0, 0] and list(table["multiplicity"]) == [1, 1]
+
+
+def test_label_output_goes_back_into_fit(tmp_path, capsys):
+    pytest.importorskip("tblite")
+    smiles = ["C", "CC", "CCC", "CCCC", "CO", "CCO", "CCCO", "CC(C)O", "COC", "CC=O", "CC(C)=O", "CC#N",
+              "CC(=O)[O-]", "C1CC"]
+    candidates = tmp_path / "small.csv"
+    candidates.write_text("smiles\n" + "\n".join(smiles) + "\n")
+    labels = tmp_path / "labels.csv"
+    assert main(["label", str(candidates), "--method", "xtb", "--out", str(labels)]) == 0
+    table = read_labels(labels).set_index("name")
+    assert set(table["geometry_source"]) == {"rdkit-etkdg+mmff94"}  # a single point on the embedded geometry
+    frames = read_molecules(labels.with_suffix(".xyz"))
+    assert not frames.rejected and len(frames.molecules) == 13  # every computed molecule, the ion included
+    for atoms in frames.molecules:
+        row = table.loc[atoms.info["name"]]
+        assert atoms.info["energy"] == pytest.approx(row["energy_eV"], rel=1e-12)
+        assert (atoms.info["charge"], atoms.info["multiplicity"]) == (row["charge"], row["multiplicity"])
+        assert atoms.info["geometry_source"] == "rdkit-etkdg+mmff94"
+        np.testing.assert_allclose(atoms.positions, embed_smiles(atoms.info["smiles"]).positions, atol=1e-6)
+    capsys.readouterr()
+    model = tmp_path / "model.npz"
+    assert main(["fit", str(labels.with_suffix(".xyz")), "--energy-key", "atomization_energy", "--descriptor", "counts",
+                 "--model", "baseline", "--out", str(model)]) == 0
+    out = capsys.readouterr().out
+    assert "model fitted on 12 molecules" in out and "missing energy 'atomization_energy'" in out  # the ion

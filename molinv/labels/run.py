@@ -8,11 +8,18 @@ chunks can run in joblib workers here or on a cluster's workers.
 (this process, local processes or a Dask cluster), appends each finished chunk's rows
 to a CSV labels file and skips the names already in it, so a restarted run computes
 nothing twice.
-Columns (our layout): name, formula, charge, multiplicity (the state computed), method,
-status ('ok' or 'failed'), energy_Hartree, energy_eV, atomization_energy_eV, seconds, reason.
-Files written before charge and multiplicity were columns are given them on reading
-(charge 0 and, where computed, multiplicity 1: all that could be computed then) and
-rewritten with them before new rows are added.
+Columns (our layout): name, formula, charge, multiplicity (the state computed),
+geometry_source (where the coordinates came from: the input file, or RDKit's embedding of a
+SMILES, on which the energy is a single point), method, status ('ok' or 'failed'),
+energy_Hartree, energy_eV, atomization_energy_eV, seconds, reason. Files written before
+charge, multiplicity and geometry_source were columns are given them on reading (charge 0
+and, where computed, multiplicity 1: all that could be computed then; the geometry source
+unknown) and rewritten with them before new rows are added.
+
+With ``geometries``, the molecules whose row is 'ok' are also appended, as their chunk
+finishes, to an extended-XYZ file with their coordinates (Angstrom), name, charge,
+multiplicity, method, geometry_source, ``energy`` (total, eV) and ``atomization_energy``
+(eV; none for ions): the file ``molinv fit`` reads as it is.
 """
 
 from __future__ import annotations
@@ -30,6 +37,7 @@ from typing import Sequence
 import numpy as np
 import pandas as pd
 from ase import Atoms
+from ase.io import write as ase_write
 from threadpoolctl import threadpool_limits
 
 from molinv.cluster.chunks import InProcess, LocalProcesses, chunked, folder_beside, part_path, run_chunks
@@ -38,10 +46,10 @@ from molinv.molecules.units import ENERGY_UNITS
 
 from .methods import LabelError, LabelFailure, LabelMethod, atomization_energy_ev, computed_state, total_energy_hartree
 
-COLUMNS = ("name", "formula", "charge", "multiplicity", "method", "status", "energy_Hartree", "energy_eV",
-           "atomization_energy_eV", "seconds", "reason")
-#: The columns of files written before the charge and multiplicity were recorded.
-COLUMNS_WITHOUT_STATE = tuple(c for c in COLUMNS if c not in ("charge", "multiplicity"))
+COLUMNS = ("name", "formula", "charge", "multiplicity", "geometry_source", "method", "status", "energy_Hartree",
+           "energy_eV", "atomization_energy_eV", "seconds", "reason")
+#: The columns of files written before the charge, multiplicity and geometry source were recorded.
+COLUMNS_WITHOUT_STATE = tuple(c for c in COLUMNS if c not in ("charge", "multiplicity", "geometry_source"))
 NUMBER_COLUMNS = ("charge", "multiplicity", "energy_Hartree", "energy_eV", "atomization_energy_eV", "seconds")
 #: Thread-count variables of OpenMP and the BLAS libraries, set to 1 in worker processes:
 #: two threads per process on 2 cores made PySCF and tblite 2-20x slower (as measured when issue 7 was filed).
@@ -64,7 +72,7 @@ def molecule_names(molecules: Sequence[Atoms]) -> list[str]:
 def label_one(atoms: Atoms, name: str, method: LabelMethod) -> dict:
     """One row: the energies of ``atoms``, or status 'failed' with the reason."""
     row = {"name": name, "formula": atoms.get_chemical_formula(), "charge": np.nan, "multiplicity": np.nan,
-           "method": method.name, "status": "ok", "energy_Hartree": np.nan, "energy_eV": np.nan,
+           "geometry_source": atoms.info.get("geometry_source", "file"), "method": method.name, "status": "ok", "energy_Hartree": np.nan, "energy_eV": np.nan,
            "atomization_energy_eV": np.nan, "reason": ""}
     started = time.perf_counter()
     try:
@@ -114,7 +122,8 @@ def _finished_rows(path: Path, method: LabelMethod | None) -> pd.DataFrame:
     except (pd.errors.ParserError, pd.errors.EmptyDataError) as error:
         raise LabelError(f"{path}: not a molinv labels file ({error})") from None
     if tuple(table.columns) == COLUMNS_WITHOUT_STATE:
-        table = table.assign(charge=0, multiplicity=np.where(table["status"] == "ok", 1.0, np.nan))[list(COLUMNS)]
+        table = table.assign(charge=0, multiplicity=np.where(table["status"] == "ok", 1.0, np.nan),
+                             geometry_source="")[list(COLUMNS)]
     if tuple(table.columns) != COLUMNS:
         raise LabelError(f"{path}: columns {list(table.columns)} are not those of a molinv labels file")
     methods = set(table["method"])
@@ -138,7 +147,7 @@ class LabelSummary:
 
 def label_molecules(molecules: Sequence[Atoms], method: LabelMethod, path, *, n_jobs: int = 1,
                     chunk_size: int | None = None, retry_failed: bool = False, progress: bool | None = None,
-                    executor=None) -> LabelSummary:
+                    executor=None, geometries=None) -> LabelSummary:
     """Compute every molecule not yet in the labels file ``path`` and append its row as its chunk finishes.
 
     ``n_jobs`` processes run with one thread each; ``executor`` (for example a
@@ -149,7 +158,9 @@ def label_molecules(molecules: Sequence[Atoms], method: LabelMethod, path, *, n_
     defaults to 1 for PySCF (each result written the moment it exists) and 16 for
     GFN2-xTB (about 10 ms each, where per-task overhead would dominate).
     ``retry_failed`` recomputes the molecules whose earlier row failed (their old rows
-    stay, marked by time order).
+    stay, marked by time order). ``geometries``: the extended-XYZ file of the module
+    docstring (rows of leftover chunks whose names are not in ``molecules`` have no
+    coordinates to write there; they stay in ``path``).
     """
     if n_jobs < 1:
         raise LabelError("n_jobs must be at least 1")
@@ -163,8 +174,9 @@ def label_molecules(molecules: Sequence[Atoms], method: LabelMethod, path, *, n_
     if not path.exists() or path.stat().st_size == 0:
         _append(path, [], header=True)
     folder = folder_beside(path)
+    by_name = dict(zip(names, molecules))
     for part in sorted(folder.glob("run-*/part-*.csv")):
-        _move_rows(part, path, method, _done_names(finished, retry_failed))
+        _append_geometries(geometries, _move_rows(part, path, method, _done_names(finished, retry_failed)), by_name)
     done = _done_names(_finished_rows(path, method), retry_failed)
     # Each run numbers its chunks afresh, so each gets a folder of its own: a chunk of a stopped
     # run that a worker finishes late must not take the place of this run's chunk of that number.
@@ -179,6 +191,7 @@ def label_molecules(molecules: Sequence[Atoms], method: LabelMethod, path, *, n_
         nonlocal failed
         rows = _move_rows(part_path(run_folder, report.number, ".csv"), path, method, done)
         failed += int((rows["status"] == "failed").sum())
+        _append_geometries(geometries, rows, by_name)
 
     if executor is None:
         executor = LocalProcesses(n_jobs, inner_threads=1) if n_jobs > 1 else InProcess()
@@ -188,6 +201,25 @@ def label_molecules(molecules: Sequence[Atoms], method: LabelMethod, path, *, n_
         with suppress(OSError):
             empty.rmdir()
     return LabelSummary(path, len(names) - len(todo), sum(report.items for report in reports), failed)
+
+
+def _append_geometries(path, rows: pd.DataFrame, by_name: dict) -> None:
+    """Append the 'ok' rows' molecules, with their energies and state, to the extended-XYZ file ``path``."""
+    if path is None:
+        return
+    frames = []
+    for row in rows[(rows["status"] == "ok") & rows["name"].isin(list(by_name))].itertuples(index=False):
+        atoms = by_name[row.name]
+        frame = Atoms(numbers=atoms.numbers, positions=atoms.positions)
+        frame.info.update(name=row.name, charge=int(row.charge), multiplicity=int(row.multiplicity),
+                          geometry_source=row.geometry_source, method=row.method, energy=float(row.energy_eV))
+        if np.isfinite(row.atomization_energy_eV):
+            frame.info["atomization_energy"] = float(row.atomization_energy_eV)
+        if atoms.info.get("smiles"):
+            frame.info["smiles"] = str(atoms.info["smiles"])
+        frames.append(frame)
+    if frames:
+        ase_write(path, frames, format="extxyz", append=True)
 
 
 def label_packed(chunk: MoleculeChunk, method: LabelMethod) -> pd.DataFrame:
