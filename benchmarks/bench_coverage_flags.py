@@ -50,8 +50,9 @@ def main() -> None:
     train = [m for m, h in zip(pool, held) if not h][: args.train]
     rest = [m for m, h in zip(pool, held) if h] + [m for m, h in zip(pool, held) if not h][args.train:]
     energies = np.array([m.info["atomization_energy"] for m in train])
-    model = EnergyModel(make_descriptor(args.descriptor),
-                        make_regressor(args.model, False, descriptor=args.descriptor)).fit(train, energies)
+    descriptor = make_descriptor(args.descriptor)
+    model = EnergyModel(descriptor, make_regressor(args.model, descriptor.per_atom, descriptor=args.descriptor))
+    model.fit(train, energies)
     test = [m for m in rest if not describable(model.descriptor_, m)][: args.test]
     assessed = model.assess(test)
     errors = np.abs(convert_energy(assessed["predicted"] - np.array([m.info["atomization_energy"] for m in test]),

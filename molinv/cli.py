@@ -132,13 +132,14 @@ def add_recipe_options(parser, several: bool = False) -> None:
     described = "; ".join(f"{k}: {v[3]}" for k, v in DESCRIPTORS.items())
     if several:
         parser.add_argument("--descriptor", action="append", choices=list(DESCRIPTORS), metavar="NAME",
-                            help=f"descriptor, repeat for several curves side by side ({described})")
+                            help=f"descriptor, repeat for several curves side by side (default atoms; {described})")
         parser.add_argument("--model", action="append", choices=list(MODEL_HELP), metavar="NAME",
-                            help="model, one per --descriptor or one for all (" + "; ".join(f"{k}: {v}" for k, v in MODEL_HELP.items()) + ")")
+                            help="model, one per --descriptor or one for all (default kernel; " + "; ".join(f"{k}: {v}" for k, v in MODEL_HELP.items()) + ")")
     else:
-        parser.add_argument("--descriptor", default="atoms", choices=list(DESCRIPTORS), metavar="NAME", help=described)
+        parser.add_argument("--descriptor", default="atoms", choices=list(DESCRIPTORS), metavar="NAME",
+                            help=f"default atoms. {described}")
         parser.add_argument("--model", default="kernel", choices=list(MODEL_HELP), metavar="NAME",
-                            help="; ".join(f"{k}: {v}" for k, v in MODEL_HELP.items()))
+                            help="default kernel. " + "; ".join(f"{k}: {v}" for k, v in MODEL_HELP.items()))
     parser.add_argument("--cache", type=Path, default=None,
                         help="folder of cached descriptor values (default: none; reruns then recompute)")
     parser.add_argument("--jobs", type=int, default=1, help="worker processes for describing molecules")

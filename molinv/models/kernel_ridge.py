@@ -405,7 +405,7 @@ class _GridSearch:
             residuals.append((y[train] - predict_baseline(state, X[train]), y[validation] - predict_baseline(state, X[validation])))
         errors = np.zeros((len(folds), len(widths), len(regularizations)))
         blocks = self._fold_kernels(X, kernel, folds, widths, shared)
-        bar = tqdm(blocks, total=len(folds) * len(widths), desc=type(self).__name__, unit="fold x width",
+        bar = tqdm(blocks, total=len(folds) * len(widths), desc="cross-validation", unit="fold x width",
                    disable=None if self.progress is None else not self.progress)
         for i_fold, i_width, kernel_train, kernel_val in bar:
             y_train, y_val = residuals[i_fold]
