@@ -45,12 +45,13 @@ def test_isomers_are_ranked_within_their_formula(train, candidates, tmp_path):
     c3 = table[table["formula"] == "C3H8O"]
     assert c3["rank_in_formula"].is_monotonic_increasing
     assert (c3["relative_to_best_isomer_kcal/mol"] >= 0).all() and c3["atomization_energy_kcal/mol"].is_monotonic_decreasing
-    assert np.isnan(ranks["typo"]) and table["name"].iloc[-1] == "typo"
+    assert pd.isna(ranks["typo"]) and table["name"].iloc[-1] == "typo"
     summary = screen_file(model, candidates, tmp_path / "screen", model_fingerprint="m", target="atomization_energy")
     text = (tmp_path / "screen" / "summary.txt").read_text()
     assert "ranked within each formula" in text and "energies of different formulas are not compared" in text
     assert (summary.top["rank_in_formula"] == 1).all() and "triacontane" not in set(summary.top["name"])
-    pd.testing.assert_series_equal(pd.read_csv(summary.table_path)["rank_in_formula"], table["rank_in_formula"])
+    pd.testing.assert_series_equal(pd.read_csv(summary.table_path)["rank_in_formula"], table["rank_in_formula"],
+                                   check_dtype=False)
 
 
 def test_a_gap_model_gets_no_energy_columns(train, candidates, tmp_path):
@@ -63,3 +64,17 @@ def test_a_gap_model_gets_no_energy_columns(train, candidates, tmp_path):
     screen_file(model, candidates, tmp_path / "screen", model_fingerprint="m", target="gap", unit="eV")
     text = (tmp_path / "screen" / "summary.txt").read_text()
     assert "not ranked: gap does not order molecules by stability" in text
+
+
+def test_counts_are_written_as_whole_numbers(train, candidates, tmp_path):
+    model = fitted(train, "atomization_energy")
+    result = read_molecules(candidates)
+    predicted = tmp_path / "predicted.csv"
+    prediction_table(model, result.molecules, result.rejected, target="atomization_energy").to_csv(predicted, index=False)
+    summary = screen_file(model, candidates, tmp_path / "screen", model_fingerprint="m", target="atomization_energy",
+                          chunk_size=3)
+    for path in (predicted, summary.table_path):
+        text = pd.read_csv(path, dtype=str, keep_default_na=False)
+        for column in ("record", "n_atoms", "charge", "multiplicity", "rank_in_formula"):
+            assert text[column].str.fullmatch(r"-?\d*").all(), (path.name, column, list(text[column]))
+        assert (text.loc[text["name"] == "typo", ["n_atoms", "charge", "rank_in_formula"]] == "").all(axis=None)

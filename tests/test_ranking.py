@@ -31,6 +31,7 @@ def reference_finish_ranking(table: pd.DataFrame, unit: str, target: str) -> pd.
     reasons = table["reason"].fillna("").astype(str)
     note = "name also used by record " + first_record.astype("Int64").astype(str)
     table["reason"] = reasons.where(~repeated, reasons.where(reasons == "", reasons + "; ") + note)
+    table = table.astype({"record": "Int64", "n_atoms": "Int64"})
     if target not in ("atomization_energy", "energy"):
         return table.sort_values("record", na_position="last", kind="stable").reset_index(drop=True)
     table[f"{target}_per_atom_{unit}"] = table[value_column] / table["n_atoms"]
@@ -39,7 +40,7 @@ def reference_finish_ranking(table: pd.DataFrame, unit: str, target: str) -> pd.
     best = predicted.groupby(table["formula"]).transform("max" if larger_is_stabler else "min")
     table[f"relative_to_best_isomer_{unit}"] = (best - predicted) if larger_is_stabler else (predicted - best)
     table["rank_in_formula"] = predicted.groupby(table["formula"]).rank(ascending=not larger_is_stabler,
-                                                                         method="first")
+                                                                         method="first").astype("Int64")
     ranked = table[predicted.notna()].sort_values(["formula", "rank_in_formula"], kind="stable")
     unranked = table[predicted.isna()].sort_values("record", na_position="last", kind="stable")
     return pd.concat([ranked, unranked]).reset_index(drop=True)

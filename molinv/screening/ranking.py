@@ -142,6 +142,16 @@ def predicted(table: pd.DataFrame, value_column: str) -> pd.Series:
     return table[value_column].where(table["status"] != "failed")
 
 
+#: Columns that count things: written as whole numbers, empty where missing.
+WHOLE_NUMBER_COLUMNS = ("record", "n_atoms", "charge", "multiplicity", RANK_COLUMN)
+
+
+def whole_numbers(table: pd.DataFrame) -> pd.DataFrame:
+    """The table with its counting columns as nullable integers (CSV '3', not '3.0')."""
+    present = [column for column in WHOLE_NUMBER_COLUMNS if column in table.columns]
+    return table.astype({column: "Int64" for column in present})
+
+
 def reason_text(reasons: pd.Series) -> pd.Series:
     # Read back from chunk files, a column of empty reasons is all NaN (float): make it text first.
     return reasons.fillna("").astype(str)
@@ -150,7 +160,7 @@ def reason_text(reasons: pd.Series) -> pd.Series:
 def finish_rows(table: pd.DataFrame, book: RankingBook, number: int, start: int) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Second pass on chunk ``number``, whose first row is row ``start`` of the whole table:
     the finished rows (all columns but the rank) and their sort keys (:data:`KEY_COLUMNS`)."""
-    table = table.astype(book.dtypes)
+    table = whole_numbers(table.astype(book.dtypes))
     names = table["name"]
     uses = [book.first_use[name] if may else (number, np.nan) for name, may in zip(names, book.may_repeat(names))]
     earlier_chunk = np.array([use[0] < number for use in uses], dtype=bool)
@@ -175,7 +185,7 @@ def sort_keys(values: pd.Series, records: pd.Series, formulas: pd.Series, start:
     """Ranked rows by formula, then by value (most stable first), equal values in row order;
     then the unranked rows by record, missing records last, equal records in row order."""
     unranked = values.isna().to_numpy()
-    records = records.to_numpy(dtype=float)
+    records = records.to_numpy(dtype=float, na_value=np.nan)
     stability = -values.to_numpy() if larger_is_stabler else values.to_numpy()
     order = np.where(unranked, records, stability)
     return pd.DataFrame({"unranked": unranked.astype(np.int8),
@@ -219,7 +229,7 @@ def finish_ranking(table: pd.DataFrame, unit: str, target: str) -> pd.DataFrame:
     book = read_book(lambda: [table], unit, target)
     finished, keys = sorted_rows(*finish_rows(table, book, 0, 0))
     if book.ranks:
-        finished[RANK_COLUMN] = ranks(keys)
+        finished[RANK_COLUMN] = pd.array(ranks(keys), dtype="Int64")
     return finished
 
 
@@ -270,7 +280,8 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
         os.replace(partial, csv_path)
     best = runs.leaders
     if book.ranks:
-        best = best.assign(**{RANK_COLUMN: [ranks_of[p] for p in runs.leader_keys["position"].tolist()]})
+        best = best.assign(**{RANK_COLUMN: pd.array([ranks_of[p] for p in runs.leader_keys["position"].tolist()],
+                                                    dtype="Int64")})
     if parquet_path is not None:
         write_parquet(csv_path, parquet_path, runs.dtypes, run_rows, book.ranks)
     return RankedFiles(book.rows, runs.counts, best)
@@ -343,7 +354,7 @@ def merge_into_runs(paths: list[Path], fan_in: int) -> list[Path]:
 
 
 def merge_runs(paths: list[Path], csv_path: Path, columns: list[str], wanted: set[int],
-               with_ranks: bool = True) -> dict[int, float]:
+               with_ranks: bool = True) -> dict[int, int]:
     """Third pass: merge sorted runs into one CSV file (written as pandas writes one), numbering
     the ranks within each formula on the way (``with_ranks``); returns the rank of each row whose
     position is in ``wanted``."""
@@ -355,9 +366,9 @@ def merge_runs(paths: list[Path], csv_path: Path, columns: list[str], wanted: se
         for (unranked, _, formula, _, position), fields in merged_records(paths):
             rank = 1 if formula != group else rank + 1
             group = formula
-            text = "" if unranked else str(np.float64(rank))
+            text = "" if unranked else str(rank)
             if position in wanted:
-                found[position] = np.nan if unranked else float(rank)
+                found[position] = pd.NA if unranked else rank
             writer.writerow(fields[len(KEY_COLUMNS):] + ([text] if with_ranks else []))
     return found
 
@@ -369,7 +380,7 @@ def write_parquet(csv_path: Path, parquet_path, dtypes: pd.Series, batch_rows: i
     import pyarrow.parquet as pq
 
     if with_ranks:
-        dtypes = pd.concat([dtypes, pd.Series({RANK_COLUMN: np.dtype(float)})])
+        dtypes = pd.concat([dtypes, pd.Series({RANK_COLUMN: pd.Int64Dtype()})])
     text = {name: str for name, dtype in dtypes.items() if not pd.api.types.is_numeric_dtype(dtype)}
     writer = None
     try:

@@ -24,7 +24,7 @@ from molinv.molecules.checks import MoleculeError, Rejected
 from molinv.molecules.electrons import electronic_state
 from molinv.molecules.units import convert_energy
 
-from .ranking import finish_ranking
+from .ranking import finish_ranking, whole_numbers
 
 CAUTION = (
     "Predictions are statistical estimates, not a substitute for validated quantum-chemical calculations, "
@@ -97,6 +97,6 @@ def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejec
         for row, why in zip(usable, assessed["outside_because"]):
             if why:
                 table.loc[row, ["status", "reason"]] = ["flagged", why]
-    table = table.sort_values("record", kind="stable", na_position="last").reset_index(drop=True)
+    table = whole_numbers(table.sort_values("record", kind="stable", na_position="last").reset_index(drop=True))
     return finish_ranking(table, unit=unit, target=target) if rank else table
 
