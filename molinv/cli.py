@@ -357,13 +357,17 @@ def add_method_options(parser) -> None:
     parser.add_argument("--cartesian", action="store_true", help="Cartesian d and f functions (default spherical)")
     parser.add_argument("--grid-level", type=int, default=3, help="PySCF DFT grid level 0-9 (default 3)")
     parser.add_argument("--max-cycles", type=int, default=100, help="SCF iterations before giving up (default 100)")
+    parser.add_argument("--optimize", action="store_true",
+                        help="move each molecule to its GFN2-xTB minimum first (tblite, BFGS to 0.02 eV/Angstrom) and "
+                             "compute the energy there; the method reads METHOD//GFN2-xTB and geometry_source says "
+                             "where the optimisation started (default: a single point on the input geometry)")
 
 
 def label_method(args):
     from .labels import LabelMethod
 
     return LabelMethod(args.method, functional=args.functional, basis=args.basis, grid_level=args.grid_level,
-                       max_cycles=args.max_cycles, cartesian=args.cartesian)
+                       max_cycles=args.max_cycles, cartesian=args.cartesian, optimize=args.optimize)
 
 
 def run_label(args) -> int:

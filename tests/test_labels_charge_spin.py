@@ -118,3 +118,29 @@ def test_label_output_goes_back_into_fit(tmp_path, capsys):
                  "--model", "baseline", "--out", str(model)]) == 0
     out = capsys.readouterr().out
     assert "model fitted on 12 molecules" in out and "missing energy 'atomization_energy'" in out  # the ion
+
+
+def test_optimise_with_xtb_first(tmp_path):
+    pytest.importorskip("tblite")
+    from tblite.ase import TBLite
+
+    molecules = [embed_smiles(s) for s in ("CCO", "CC(=O)[O-]")]
+    for atoms, name in zip(molecules, ("ethanol", "acetate")):
+        atoms.info["name"] = name
+    path = tmp_path / "labels.csv"
+    single = label_chunk(molecules, LabelMethod("xtb"))
+    label_molecules(molecules, LabelMethod("xtb", optimize=True), path, geometries=tmp_path / "labels.xyz")
+    table = read_labels(path).set_index("name")
+    assert set(table["method"]) == {"GFN2-xTB//GFN2-xTB"}
+    assert not any(tmp_path.glob("*.chunks"))  # the optimised chunks are removed once used
+    assert set(table["geometry_source"]) == {"GFN2-xTB optimised from rdkit-etkdg+mmff94"}
+    frames = {a.info["name"]: a for a in read_molecules(tmp_path / "labels.xyz").molecules}
+    for row in single:
+        moved = frames[row["name"]]
+        # A minimum of the method lies below the force-field geometry's single point.
+        assert table.loc[row["name"], "energy_Hartree"] < row["energy_Hartree"]
+        # tblite itself, called on the written geometry: its energy, and forces below the threshold.
+        moved.calc = TBLite(method="GFN2-xTB", charge=moved.info["charge"], multiplicity=moved.info["multiplicity"],
+                            verbosity=0)
+        assert moved.get_potential_energy() == pytest.approx(table.loc[row["name"], "energy_eV"], abs=1e-6)
+        assert np.abs(moved.get_forces()).max() < 0.02

@@ -27,8 +27,9 @@ from __future__ import annotations
 import csv
 import io
 import os
+import shutil
 import time
-from contextlib import suppress
+from contextlib import contextmanager, suppress
 from dataclasses import dataclass, replace
 from functools import partial
 from pathlib import Path
@@ -40,11 +41,13 @@ from ase import Atoms
 from ase.io import write as ase_write
 from threadpoolctl import threadpool_limits
 
-from molinv.cluster.chunks import InProcess, LocalProcesses, chunked, folder_beside, part_path, run_chunks
+from molinv.cluster.chunks import (InProcess, LocalProcesses, chunked, folder_beside, part_path, read_arrays,
+                                   run_chunks)
 from molinv.molecules.packed import MoleculeChunk, pack
 from molinv.molecules.units import ENERGY_UNITS
 
-from .methods import LabelError, LabelFailure, LabelMethod, atomization_energy_ev, computed_state, total_energy_hartree
+from .methods import (LabelError, LabelFailure, LabelMethod, atomization_energy_ev, computed_state,
+                      total_energy_hartree, xtb_optimised)
 
 COLUMNS = ("name", "formula", "charge", "multiplicity", "geometry_source", "method", "status", "energy_Hartree",
            "energy_eV", "atomization_energy_eV", "seconds", "reason")
@@ -69,6 +72,10 @@ def molecule_names(molecules: Sequence[Atoms]) -> list[str]:
     return names
 
 
+#: ``info`` key of a molecule whose geometry optimisation failed: the reason, which its row then gives.
+OPTIMISATION_FAILURE = "optimisation_failure"
+
+
 def label_one(atoms: Atoms, name: str, method: LabelMethod) -> dict:
     """One row: the energies of ``atoms``, or status 'failed' with the reason."""
     row = {"name": name, "formula": atoms.get_chemical_formula(), "charge": np.nan, "multiplicity": np.nan,
@@ -76,6 +83,8 @@ def label_one(atoms: Atoms, name: str, method: LabelMethod) -> dict:
            "atomization_energy_eV": np.nan, "reason": ""}
     started = time.perf_counter()
     try:
+        if atoms.info.get(OPTIMISATION_FAILURE):
+            raise LabelFailure(atoms.info[OPTIMISATION_FAILURE])
         row["charge"], row["multiplicity"] = computed_state(atoms)
         total = total_energy_hartree(atoms, method)
         row["energy_Hartree"] = total
@@ -96,6 +105,13 @@ def label_chunk(molecules: Sequence[Atoms], method: LabelMethod, names: Sequence
     a failing molecule gives a 'failed' row and the chunk goes on.
     """
     names = molecule_names(molecules) if names is None else list(names)
+    with one_thread(method):
+        return [label_one(atoms, name, method) for atoms, name in zip(molecules, names)]
+
+
+@contextmanager
+def one_thread(method: LabelMethod):
+    """Every numerical library on one thread inside the block."""
     for variable in THREAD_VARIABLES:
         os.environ[variable] = "1"
     with threadpool_limits(limits=1):
@@ -103,7 +119,34 @@ def label_chunk(molecules: Sequence[Atoms], method: LabelMethod, names: Sequence
             from pyscf import lib
 
             lib.num_threads(1)
-        return [label_one(atoms, name, method) for atoms, name in zip(molecules, names)]
+        yield
+
+
+def optimise_packed(chunk: MoleculeChunk, method: LabelMethod) -> dict[str, np.ndarray]:
+    """Each molecule of a packed chunk at its GFN2-xTB minimum, packed again (a
+    :func:`molinv.cluster.chunks.run_chunks` task); one that cannot be optimised keeps its
+    geometry and the reason, which its label row then gives."""
+    moved = []
+    with one_thread(method):
+        for atoms in chunk.unpack():
+            try:
+                moved.append(xtb_optimised(atoms))
+            except LabelFailure as failure:
+                atoms.info[OPTIMISATION_FAILURE] = str(failure)
+                moved.append(atoms)
+    return replace(pack(moved), names=chunk.names, named=chunk.named).arrays()
+
+
+def _optimised(molecules: list[Atoms], names: list[str], folder: Path, method: LabelMethod, size: int, executor,
+               progress) -> list[Atoms]:
+    """The molecules at their GFN2-xTB minima, optimised chunk by chunk by ``executor`` in ``folder``."""
+    chunks = ((number, partial(_named_chunk, [molecules[i] for i in group], [names[i] for i in group]))
+              for number, group in chunked(range(len(molecules)), size))
+    run_chunks(optimise_packed, chunks, folder, shared=method, executor=executor, total=len(molecules),
+               progress=progress, description="GFN2-xTB optimisation")
+    moved = [atoms for arrays in read_arrays(folder) for atoms in MoleculeChunk.from_arrays(arrays).unpack()]
+    shutil.rmtree(folder)
+    return moved
 
 
 def _finished_rows(path: Path, method: LabelMethod | None) -> pd.DataFrame:
@@ -183,6 +226,13 @@ def label_molecules(molecules: Sequence[Atoms], method: LabelMethod, path, *, n_
     run_folder = folder / f"run-{time.strftime('%Y%m%d-%H%M%S')}-{os.urandom(3).hex()}"
     todo = [i for i, name in enumerate(names) if name not in done]
     size = chunk_size or (16 if method.kind == "xtb" else 1)
+    if executor is None:
+        executor = LocalProcesses(n_jobs, inner_threads=1) if n_jobs > 1 else InProcess()
+    if method.optimize and todo:
+        moved = _optimised([molecules[i] for i in todo], [names[i] for i in todo], run_folder / "optimised", method,
+                           chunk_size or 4, executor, progress)
+        for i, atoms in zip(todo, moved):
+            molecules[i] = by_name[names[i]] = atoms
     chunks = ((number, partial(_named_chunk, [molecules[i] for i in group], [names[i] for i in group]))
               for number, group in chunked(todo, size))
     failed = 0
@@ -193,8 +243,6 @@ def label_molecules(molecules: Sequence[Atoms], method: LabelMethod, path, *, n_
         failed += int((rows["status"] == "failed").sum())
         _append_geometries(geometries, rows, by_name)
 
-    if executor is None:
-        executor = LocalProcesses(n_jobs, inner_threads=1) if n_jobs > 1 else InProcess()
     reports = run_chunks(label_packed, chunks, run_folder, shared=method, executor=executor, total=len(todo),
                          progress=progress, description=f"labels {method.name}", on_finished=move)
     for empty in [*folder.glob("run-*"), folder]:  # their rows are in the labels file now
