@@ -258,9 +258,11 @@ def run_predict(args) -> int:
     from .cluster.chunks import folder_beside
     from .recipes import EnergyModel
     from .screening import CAUTION, prediction_table
+    from .screening.held_out import compare_with_references
     from .screening.ranking import ranking_note
 
     model, metadata = EnergyModel.load(args.model_file)
+    compared = []
     if args.cluster or args.jobs != 1:
         # Chunks beside the output, so that an interrupted prediction resumes.
         summary = screen(args, model, metadata, folder_beside(args.out), chunk_size=1000, parquet=False)
@@ -268,9 +270,14 @@ def run_predict(args) -> int:
     else:
         result = read_input(args, require_energy=False)
         table = prediction_table(model, result.molecules, result.rejected, unit=args.unit, target=metadata["target"])
+        if energy_key(args) == metadata["target"]:
+            table, compared = compare_with_references(table, result.molecules, energy_key(args), metadata["target"],
+                                                      args.unit, getattr(model.regressor_, "interval_level", 0.9))
     table.to_csv(args.out, index=False)
     counts = table["status"].value_counts().to_dict()
     print(f"{len(table)} rows -> {args.out}: " + ", ".join(f"{n} {s}" for s, n in counts.items()))
+    for line in compared:
+        print(line)
     print(f"table {ranking_note(metadata['target'])}")
     print(f"Caution: {CAUTION}")
     return 0
