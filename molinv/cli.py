@@ -110,6 +110,13 @@ def write_rejected(rejected, path: Path) -> None:
     pd.DataFrame([[getattr(r, c) for c in columns] for r in rejected], columns=columns).to_csv(path, index=False)
 
 
+def write_geometries(path: Path, molecules) -> None:
+    from .molecules import write_molecules
+
+    write_molecules(path, molecules)
+    print(f"{len(molecules)} geometries (Angstrom) with name, charge and multiplicity -> {path}")
+
+
 def run_check(args) -> int:
     from collections import Counter
 
@@ -263,6 +270,8 @@ def run_predict(args) -> int:
 
     model, metadata = EnergyModel.load(args.model_file)
     compared = []
+    if args.geometries and (args.cluster or args.jobs != 1):
+        raise CommandError("--geometries works without --jobs and --cluster (the molecules stay in the workers)")
     if args.cluster or args.jobs != 1:
         # Chunks beside the output, so that an interrupted prediction resumes.
         summary = screen(args, model, metadata, folder_beside(args.out), chunk_size=1000, parquet=False)
@@ -278,6 +287,8 @@ def run_predict(args) -> int:
     print(f"{len(table)} rows -> {args.out}: " + ", ".join(f"{n} {s}" for s, n in counts.items()))
     for line in compared:
         print(line)
+    if args.geometries:
+        write_geometries(args.geometries, result.molecules)
     print(f"table {ranking_note(metadata['target'])}")
     print(f"Caution: {CAUTION}")
     return 0
@@ -436,6 +447,9 @@ def run_pick(args) -> int:
                        strategy=args.strategy, reference_size=args.reference, seed=args.seed)
     table.to_csv(args.out, index=False)
     picked = table[table["pick_order"].notna()].sort_values("pick_order")
+    if args.geometries:
+        by_record = {atoms.info["record"]: atoms for atoms in result.molecules}
+        write_geometries(args.geometries, [by_record[record] for record in picked["record"]])
     shown = ["pick_order", "record", "name", "formula", f"{metadata['target']}_{args.unit}", f"std_{args.unit}", "status"]
     print(f"picked {args.k} of {len(table)} rows ({STRATEGIES[args.strategy]}) -> {args.out}")
     print(picked[shown].to_string(index=False, float_format=lambda v: f"{v:.2f}"))
@@ -578,6 +592,9 @@ def build_parser() -> argparse.ArgumentParser:
     add_input_options(predict)
     predict.add_argument("--unit", default="kcal/mol", help="energy unit of the output table (default kcal/mol)")
     predict.add_argument("--out", type=Path, required=True, help="table to write (.csv)")
+    predict.add_argument("--geometries", type=Path, metavar="PATH",
+                         help="also write the molecules predicted on (.xyz extended XYZ or .sdf), with name, "
+                              "charge and multiplicity, for a quantum-chemistry step")
     add_execution_options(predict)
     predict.set_defaults(run=run_predict)
 
@@ -652,6 +669,9 @@ def build_parser() -> argparse.ArgumentParser:
                            "molecule (default: not picked, one label does not make the model fit for them)")
     pick.add_argument("--unit", default="kcal/mol", help="energy unit of the output (default kcal/mol)")
     pick.add_argument("--out", type=Path, required=True, help="table of all candidates with pick_order (.csv)")
+    pick.add_argument("--geometries", type=Path, metavar="PATH",
+                      help="also write the picked molecules in pick order (.xyz extended XYZ or .sdf), with name, "
+                           "charge and multiplicity, for the quantum-chemistry step")
     pick.set_defaults(run=run_pick)
 
     loop = verbs.add_parser("pick-loop", help="repeat pick, compute, refit and measure for several rounds",

@@ -51,3 +51,18 @@ def test_far_larger_candidates_only_when_asked(model, candidates, tmp_path):
     # The most uncertain candidate by far, so the first pick once allowed.
     assert table.loc["triacontane", "pick_order"] == 1
     assert pd.isna(table.loc["ammonium", "pick_order"])
+
+
+def test_geometries_for_the_quantum_chemistry_step(model, candidates, tmp_path):
+    from molinv.molecules import read_molecules
+
+    out, sdf = tmp_path / "picked.csv", tmp_path / "picked.sdf"
+    assert main(["pick", str(model), str(candidates), "--k", "3", "--out", str(out), "--geometries", str(sdf)]) == 0
+    picked = pd.read_csv(out).dropna(subset=["pick_order"]).sort_values("pick_order")
+    written = read_molecules(sdf).molecules
+    assert [a.info["name"] for a in written] == list(picked["name"])
+    xyz = tmp_path / "all.xyz"
+    assert main(["predict", str(model), str(candidates), "--out", str(tmp_path / "p.csv"), "--geometries", str(xyz)]) == 0
+    written = {a.info["name"]: a for a in read_molecules(xyz).molecules}
+    assert len(written) == len(CANDIDATES) - 1  # all but the unreadable SMILES
+    assert (written["ammonium"].info["charge"], written["ammonium"].info["multiplicity"]) == (1, 1)
