@@ -83,6 +83,44 @@ def read_input(args, require_energy: bool, runner=None, folder: Path | None = No
     return read_molecules(Path(args.input), progress=True, **options)
 
 
+ROUTE_HELP = ("geometries the model learns from: 'embed' makes each one from the molecule's SMILES (given, or "
+              "perceived from the coordinates) as candidates given as SMILES are made, the route for screening "
+              "SMILES; 'file' uses the input's coordinates as they are (for example DFT geometries; candidates must "
+              "then come with geometries of the same kind, others are flagged). Default 'auto': embed for QM9 and "
+              "SMILES inputs, file for coordinate files")
+
+
+def add_route_options(parser) -> None:
+    parser.add_argument("--route", choices=["auto", "embed", "file"], default="auto", help=ROUTE_HELP)
+    parser.add_argument("--geometry-level", metavar="TEXT",
+                        help="how the input's coordinates were computed (for example 'B3LYP/6-31G(2df,p)'), recorded "
+                             "in the model with route 'file'")
+
+
+def on_route(args, result):
+    """The read molecules on the geometry route asked for (``--route``); those that cannot be
+    brought there join the rejected records with the reason."""
+    from .molecules import ReadResult, Rejected
+    from .molecules.route import onto_embedded_route, route_of
+
+    route = args.route
+    if route == "auto":
+        route = "embed" if parse_qm9_source(args.input) else "as read"
+    if route == "file":
+        embedded = sum(route_of(atoms) == "embedded" for atoms in result.molecules)
+        if embedded:
+            raise CommandError(f"--route file: {embedded} molecules have no coordinates in the input (SMILES); "
+                               "they can only be embedded (--route embed)")
+    if route != "embed":
+        return result
+    moved = onto_embedded_route(result.molecules, n_jobs=args.jobs, progress=True)
+    kept = [item for item in moved if not isinstance(item, str)]
+    refused = [Rejected(source=result.source, record=atoms.info.get("record"), line=None,
+                        name=atoms.info.get("name"), reason=item)
+               for atoms, item in zip(result.molecules, moved) if isinstance(item, str)]
+    return ReadResult(source=result.source, molecules=kept, rejected=list(result.rejected) + refused)
+
+
 def report_rejected(result, limit: int = 10) -> None:
     print(result.summary())
     for rejected in result.rejected[:limit]:
@@ -95,7 +133,7 @@ def labelled(args):
     """Molecules with energies, and the energies (eV) in the 'energy' property."""
     import numpy as np
 
-    result = read_input(args, require_energy=True)
+    result = on_route(args, read_input(args, require_energy=True))
     report_rejected(result)
     if len(result.molecules) < 10:
         raise CommandError(f"{len(result.molecules)} usable labelled molecules; at least 10 are needed")
@@ -199,7 +237,7 @@ def energy_model(descriptor_name: str, model_name: str, args):
     descriptor = make_descriptor(descriptor_name, n_jobs=args.jobs, progress=True, **overrides)
     regressor = make_regressor(model_name, descriptor.per_atom, progress=True, descriptor=descriptor_name,
                                landmarks=getattr(args, "landmarks", None))
-    return EnergyModel(descriptor, regressor, feature_store(args))
+    return EnergyModel(descriptor, regressor, feature_store(args), geometry_level=getattr(args, "geometry_level", None))
 
 
 def run_describe(args) -> int:
@@ -243,6 +281,7 @@ def run_describe(args) -> int:
 def run_fit(args) -> int:
     from .evaluation.curves import fit_summary
     from .molecules.electrons import state_name
+    from .molecules.route import describe_route
     from .molecules.units import convert_energy
 
     molecules, energies = labelled(args)
@@ -250,6 +289,7 @@ def run_fit(args) -> int:
     target = energy_key(args)
     path = model.save(args.out, target=target, training={"source": str(args.input), "n_molecules": len(molecules)})
     print(f"model fitted on {len(molecules)} molecules -> {path}")
+    print(f"geometry route: {describe_route(model.route_)}")
     for line in fit_summary(model.regressor_):
         print(line)
     spread = convert_energy(float(energies.std()), "eV", "kcal/mol")
@@ -263,6 +303,7 @@ def run_predict(args) -> int:
     import pandas as pd
 
     from .cluster.chunks import folder_beside
+    from .molecules.route import describe_route
     from .recipes import EnergyModel
     from .screening import CAUTION, prediction_table
     from .screening.held_out import compare_with_references
@@ -290,6 +331,7 @@ def run_predict(args) -> int:
     if args.geometries:
         write_geometries(args.geometries, result.molecules)
     print(f"table {ranking_note(metadata['target'])}")
+    print(f"model's geometry route: {describe_route(model.route_)}")
     print(f"Caution: {CAUTION}")
     return 0
 
@@ -299,6 +341,7 @@ def run_curve(args) -> int:
 
     from .evaluation import CurveRun, write_report
     from .molecules.qm9 import CITATION
+    from .molecules.route import describe_route, training_route
     from .recipes import model_inputs
 
     descriptors = args.descriptor or ["atoms"]
@@ -307,6 +350,7 @@ def run_curve(args) -> int:
         raise CommandError("give one --model for all descriptors, or one per --descriptor")
     models = models * len(descriptors) if len(models) == 1 else models
     molecules, energies = labelled(args)
+    route = describe_route(training_route(molecules, args.geometry_level))
     run = CurveRun.open(args.out / "run", energies, test_size=args.test_size, sizes=args.sizes,
                         n_draws=args.draws, seed=args.seed)
     recorded = {}
@@ -322,7 +366,8 @@ def run_curve(args) -> int:
 
     page = write_report(run, args.out, unit=args.unit, target=args.target,
                         n_atoms=[len(a) for a in molecules],
-                        settings={"data": args.input, "energy": energy_key(args), "test molecules": args.test_size,
+                        settings={"data": args.input, "geometry route": route, "energy": energy_key(args),
+                                  "test molecules": args.test_size,
                                   "draws per size": args.draws, "seed": args.seed, "descriptors": ", ".join(descriptors),
                                   "models": ", ".join(models), **recorded},
                         data_citation=CITATION if parse_qm9_source(args.input) else str(args.input))
@@ -349,6 +394,7 @@ def screen(args, model, metadata, out: Path, chunk_size: int, parquet: bool):
 
 
 def run_screen(args) -> int:
+    from .molecules.route import describe_route
     from .recipes import EnergyModel
 
     model, metadata = EnergyModel.load(args.model_file)
@@ -356,6 +402,7 @@ def run_screen(args) -> int:
         raise CommandError("screen reads candidate files (.smi, .csv, .sdf, .xyz); use 'predict' for QM9 samples")
     summary = screen(args, model, metadata, args.out, args.chunk_size, args.parquet)
     print(summary.text(args.unit))
+    print(f"model's geometry route: {describe_route(model.route_)}")
     if summary.computed:
         seconds = [report.seconds for report in summary.computed]
         print(f"{len(seconds)} chunks computed in this run, {sum(seconds) / len(seconds):.1f} s each on average "
@@ -512,6 +559,7 @@ def run_demo(args) -> int:
     from .evaluation.curves import training_draw
     from .molecules import read_molecules
     from .molecules.qm9 import CITATION, load_qm9
+    from .molecules.route import onto_embedded_route
     from .recipes import EnergyModel, make_descriptor, make_regressor, model_inputs
     from .screening import CAUTION, prediction_table
 
@@ -520,8 +568,12 @@ def run_demo(args) -> int:
         raise CommandError(f"{candidates_file}: demo candidates not found (run from the molinv source folder "
                            "or give --candidates)")
     out = args.out
-    print(f"1/3 loading {args.molecules} QM9 molecules ({CITATION})")
-    molecules = load_qm9(n=args.molecules, seed=args.seed)
+    print(f"1/3 loading {args.molecules} QM9 molecules ({CITATION}), geometries made from their SMILES")
+    # Trained on geometries made from the SMILES, as the candidates' are.
+    moved = onto_embedded_route(load_qm9(n=args.molecules, seed=args.seed), progress=True)
+    molecules = [atoms for atoms in moved if not isinstance(atoms, str)]
+    for reason in [item for item in moved if isinstance(item, str)]:
+        print(f"  left out: {reason}")
     energies = [atoms.info["atomization_energy"] for atoms in molecules]
     run = CurveRun.open(out / "run", energies, test_size=args.test_size, sizes=args.sizes, n_draws=2, seed=args.seed)
     print(f"2/3 learning curves on atomization energy (from U0), test set of {args.test_size} molecules")
@@ -581,6 +633,7 @@ def build_parser() -> argparse.ArgumentParser:
                            description="Fit descriptor + regressor on labelled molecules. Energies are converted to "
                                        "eV on reading. " + UNITS_HELP)
     add_input_options(fit)
+    add_route_options(fit)
     add_recipe_options(fit)
     fit.add_argument("--out", type=Path, required=True, help="model file to write (.npz; holds no pickle)")
     fit.set_defaults(run=run_fit)
@@ -617,6 +670,7 @@ def build_parser() -> argparse.ArgumentParser:
                                          "cross-validation inside each), and write CSV, plots and report.html. "
                                          "Interrupted runs resume from the finished points. " + UNITS_HELP)
     add_input_options(curve)
+    add_route_options(curve)
     add_recipe_options(curve, several=True)
     curve.add_argument("--sizes", type=int, nargs="+", default=[100, 200, 500, 1000, 2000, 5000, 10000, 20000],
                        help="training sizes (those that fit beside the test set are used)")
@@ -681,6 +735,7 @@ def build_parser() -> argparse.ArgumentParser:
                                         "hidden until picked; otherwise they are computed with --method. "
                                         "A rerun resumes; more --sizes extend a finished loop. " + UNITS_HELP)
     add_input_options(loop)
+    add_route_options(loop)
     add_recipe_options(loop)
     add_method_options(loop)
     loop.add_argument("--simulate", action="store_true", help="use the energies in the input, revealed when picked")

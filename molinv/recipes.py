@@ -19,6 +19,7 @@ from sklearn.utils.validation import check_is_fitted
 from molinv.descriptors.base import MoleculeDescriptor, descriptor_from_settings
 from molinv.models.inputs import with_element_counts
 from molinv.models.modelfile import load_model, read_extra_arrays, save_model
+from molinv.molecules import route as routes
 from molinv.screening.applicability import ApplicabilityCheck
 from molinv.screening.coverage import TrainingChemistry
 
@@ -175,24 +176,60 @@ class EnergyModel(RegressorMixin, BaseEstimator):
     regressor : a molinv model (see :mod:`molinv.models`)
     feature_store : FeatureStore, optional
         Cache the descriptor values on disk (see :mod:`molinv.descriptors.store`).
+    geometry_level : str, optional
+        How the training coordinates were computed (for example "B3LYP/6-31G(2df,p)"), recorded
+        with a model trained on coordinates from files.
+
+    The training molecules share one geometry route (:mod:`molinv.molecules.route`), recorded in
+    ``route_``: made from SMILES, or coordinates from files. :meth:`onto_route` brings candidates
+    onto it, or says why it cannot.
     """
 
-    def __init__(self, descriptor, regressor, feature_store=None):
+    def __init__(self, descriptor, regressor, feature_store=None, geometry_level=None):
         self.descriptor = descriptor
         self.regressor = regressor
         self.feature_store = feature_store
+        self.geometry_level = geometry_level
 
     def _inputs(self, molecules):
         return model_inputs(self.descriptor_, molecules, self.feature_store)
 
     def fit(self, molecules, y):
         molecules = list(molecules)
+        self.route_ = routes.training_route(molecules, self.geometry_level)
         self.descriptor_ = clone(self.descriptor).fit(molecules)
         inputs = self._inputs(molecules)
         self.regressor_ = clone(self.regressor).fit(inputs, np.asarray(y, dtype=float))
         self.applicability_ = ApplicabilityCheck(scale=standardises(self.regressor_)).fit(inputs)
         self.chemistry_ = TrainingChemistry().fit(molecules)
         return self
+
+    def onto_route(self, molecules, n_jobs: int = 1, progress: bool | None = None) -> tuple[list, list]:
+        """Candidates on the training geometries' route: ``(molecules, notes)``, where a note is
+        ``None``, ``("failed", reason)`` (the molecule could not be brought there; its entry is
+        the input molecule) or ``("flagged", reason)`` (predicted, but from geometries made
+        another way than the training ones)."""
+        check_is_fitted(self, "route_")
+        molecules = list(molecules)
+        notes = [None] * len(molecules)
+        if self.route_["kind"] == routes.EMBEDDED:
+            moved = routes.onto_embedded_route(molecules, n_jobs=n_jobs, progress=progress)
+            for i, item in enumerate(moved):
+                if isinstance(item, str):
+                    notes[i] = ("failed", item)
+                else:
+                    molecules[i] = item
+            changed = routes.route_difference(self.route_)
+            if changed:
+                notes = [note or ("flagged", changed) for note in notes]
+            return molecules, notes
+        for i, atoms in enumerate(molecules):
+            if routes.route_of(atoms) == routes.EMBEDDED:
+                notes[i] = ("flagged", "geometry made from the SMILES by a force field, but the model learnt from "
+                                       f"{routes.describe_route(self.route_)}: on QM9 such a model errs several "
+                                       "times more on force-field geometries and its error bars do not hold; fit "
+                                       "on SMILES (--route embed) to screen SMILES")
+        return molecules, notes
 
     def assess(self, molecules) -> dict[str, np.ndarray]:
         """Predicted energy (eV), its standard deviation (eV, NaN if the model gives none),
@@ -236,7 +273,7 @@ class EnergyModel(RegressorMixin, BaseEstimator):
         numbers, arrays = self.applicability_.state()
         arrays.update({DESCRIPTOR_ARRAY_PREFIX + name: a for name, a in self.descriptor_.fitted_arrays().items()})
         metadata = {"descriptor": self.descriptor_.settings(), "units": {"energy": "eV", "length": "Angstrom"},
-                    "target": target, "training": training or {}, "applicability": numbers,
+                    "target": target, "training": training or {}, "applicability": numbers, "route": self.route_,
                     "chemistry": self.chemistry_.state()}
         return save_model(path, self.regressor_, metadata, extra_arrays=arrays)
 
@@ -250,5 +287,7 @@ class EnergyModel(RegressorMixin, BaseEstimator):
         model = cls(descriptor, regressor)
         model.descriptor_, model.regressor_ = descriptor, regressor
         model.applicability_ = ApplicabilityCheck.from_state(metadata["applicability"], extra)
+        # Model files written before routes were recorded were all trained on file coordinates.
+        model.route_ = metadata.get("route") or routes.route_settings(routes.FILE, "not recorded")
         model.chemistry_ = TrainingChemistry.from_state(metadata.get("chemistry"))
         return model, metadata

@@ -14,6 +14,7 @@ import pandas as pd
 import pytest
 
 from molinv.cluster import executor_for
+from molinv.molecules.route import onto_embedded_route
 from molinv.recipes import EnergyModel, make_descriptor, make_regressor
 from molinv.screening import prediction_table
 from molinv.screening.screen import screen_file
@@ -25,7 +26,8 @@ def atomization(molecules):
 
 @pytest.fixture(scope="module")
 def small_model(qm9, tmp_path_factory):
-    train = qm9.molecules(qm9.sample(200, seed=31, elements=["H", "C", "N", "O"]))
+    # Trained on the SMILES route, as the candidates below arrive.
+    train = onto_embedded_route(qm9.molecules(qm9.sample(200, seed=31, elements=["H", "C", "N", "O"])))
     model = EnergyModel(make_descriptor("atoms"), make_regressor("linear", per_atom=True)).fit(train, atomization(train))
     path = model.save(tmp_path_factory.mktemp("model") / "model.npz", target="atomization_energy")
     return model, path

@@ -280,7 +280,8 @@ def pick_table(model, molecules, rejected=(), k: int = 10, *, unit: str = "kcal/
     """
     from molinv.screening.table import prediction_table
 
-    molecules = list(molecules)
+    # On the model's geometry route, as the table predicts them (the table's call then finds them there).
+    molecules, _ = model.onto_route(list(molecules))
     position = {atoms.info.get("record"): i for i, atoms in enumerate(molecules)}
     if None in position or len(position) != len(molecules):
         raise LabelError("pick needs a distinct info['record'] on every molecule (as reading sets it)")

@@ -14,7 +14,7 @@ from contextlib import contextmanager
 
 import numpy as np
 from ase import Atoms
-from rdkit import Chem, RDLogger
+from rdkit import Chem, RDLogger, rdBase
 from rdkit.Chem import AllChem
 
 from .checks import MoleculeError
@@ -22,6 +22,13 @@ from .checks import MoleculeError
 #: Seed for ETKDG; fixed so that embedding is reproducible.
 EMBED_SEED = 20141005
 MAX_FORCE_FIELD_STEPS = 2000
+#: ETKDG conformers minimised per SMILES; the lowest in force-field energy is described.
+CONFORMERS = 1
+#: Geometries from the fallbacks of distance geometry are refused above this MMFF94 energy per heavy
+#: atom, kcal/mol: the QM9 cages they rescue sit at 7-12 after minimisation, cyclohexatriyne (no such
+#: molecule) at about 30, and 2D starts that stay tangled at 30-47 (measured on 10,000 QM9 SMILES,
+#: benchmarks/results/smiles_route/embedding_10k.txt; the limit itself is our choice).
+MAX_FALLBACK_STRAIN = 20.0
 
 # Route RDKit's C++ log through Python logging so a failing record's reason can be reported.
 RDLogger.logger().setLevel(RDLogger.WARNING)
@@ -77,53 +84,141 @@ def atoms_from_rdkit(mol: Chem.Mol, conformer_id: int = -1) -> Atoms:
     return Atoms(numbers=numbers, positions=positions)
 
 
-def embed_smiles(smiles: str, seed: int = EMBED_SEED, optimize: bool = True) -> Atoms:
+def embed_smiles(smiles: str, seed: int = EMBED_SEED, optimize: bool = True, conformers: int = CONFORMERS) -> Atoms:
     """3D geometry with explicit hydrogens for a SMILES string.
 
-    Raises :class:`MoleculeError` with RDKit's reason when the SMILES does not
-    parse or the embedding fails. ``info['smiles']`` holds the input, and
-    ``info['geometry_source']`` says how the coordinates were made.
+    ETKDG draws ``conformers`` geometries, each is minimised with MMFF94 (UFF where
+    MMFF94 has no parameters) and the one of lowest force-field energy is kept.
+    When distance geometry fails (strained cages, about 1% of QM9), it is retried
+    on the heavy-atom skeleton (hydrogens added afterwards), with other variants of
+    the method and seeds, and last from a 2D layout; ``info['geometry_source']``
+    says which. Raises :class:`MoleculeError` with RDKit's reason when the SMILES
+    does not parse or every attempt fails. ``info['smiles']`` holds the input.
     """
     if not isinstance(smiles, str) or not smiles.strip():
         raise MoleculeError("empty SMILES")
     with rdkit_messages() as messages:
-        mol = Chem.MolFromSmiles(smiles.strip())
-    if mol is None:
+        parsed = Chem.MolFromSmiles(smiles.strip())
+    if parsed is None:
         raise MoleculeError(f"RDKit cannot parse SMILES {smiles!r}: {rdkit_reason(messages, 'invalid SMILES')}")
-    fragments = len(Chem.GetMolFrags(mol))
+    fragments = len(Chem.GetMolFrags(parsed))
     if fragments > 1:
         # Separate fragments embed on top of each other; a record is one molecule.
         raise MoleculeError(
             f"SMILES {smiles!r} has {fragments} disconnected fragments; give one molecule per record "
             "(remove counter-ions or solvent)"
         )
-    mol = Chem.AddHs(mol)
-    params = AllChem.ETKDGv3()
-    params.randomSeed = int(seed)
     with rdkit_messages() as messages:
-        status = AllChem.EmbedMolecule(mol, params)
-        if status != 0:
-            # Strained cages sometimes embed only from random starting coordinates.
-            params.useRandomCoords = True
-            status = AllChem.EmbedMolecule(mol, params)
-    if status != 0:
-        raise MoleculeError(
-            f"RDKit cannot embed SMILES {smiles!r} in 3D: {rdkit_reason(messages, 'distance geometry failed')}"
-        )
-    source = "rdkit-etkdg"
-    if optimize:
-        if AllChem.MMFFHasAllMoleculeParams(mol):
-            AllChem.MMFFOptimizeMolecule(mol, maxIters=MAX_FORCE_FIELD_STEPS)
-            source = "rdkit-etkdg+mmff94"
-        else:
-            # MMFF94 lacks parameters for some elements and charge states; UFF covers the table.
-            AllChem.UFFOptimizeMolecule(mol, maxIters=MAX_FORCE_FIELD_STEPS)
-            source = "rdkit-etkdg+uff"
-    atoms = atoms_from_rdkit(mol)
+        try:
+            mol, source = _embedded(parsed, seed, conformers)
+            if mol is None:
+                raise MoleculeError(f"RDKit cannot embed SMILES {smiles!r} in 3D: distance geometry failed with "
+                                    "every method tried (ETKDG, on the heavy-atom skeleton, ETDG, KDG, 2D layout)")
+            if optimize:
+                conformer_id, force_field, energy = _lowest_after_minimising(mol)
+                strain = energy / max(mol.GetNumHeavyAtoms(), 1)
+                if source != "rdkit-etkdg" and force_field == "mmff94" and strain > MAX_FALLBACK_STRAIN:
+                    raise MoleculeError(
+                        f"RDKit cannot embed SMILES {smiles!r} in 3D: distance geometry failed, and the geometry "
+                        f"found otherwise is too strained to trust ({strain:.0f} kcal/mol per heavy atom in MMFF94, "
+                        f"limit {MAX_FALLBACK_STRAIN:.0f}): an impossible ring, or a tangled start")
+                source += f"+{force_field}"
+                if mol.GetNumConformers() > 1:
+                    source += f" (lowest of {mol.GetNumConformers()} conformers)"
+            else:
+                conformer_id = mol.GetConformers()[0].GetId()
+        except RuntimeError as error:
+            # RDKit raises for molecules its force fields cannot set up (query bonds such as '~').
+            failure = ": ".join(line.strip() for line in str(error).splitlines()[:2]) or type(error).__name__
+            raise MoleculeError(f"RDKit cannot build a 3D geometry for SMILES {smiles!r}: {failure} "
+                                f"({rdkit_reason(messages, 'no further message')})") from None
+    atoms = atoms_from_rdkit(mol, conformer_id)
     atoms.info["smiles"] = smiles.strip()
     atoms.info["geometry_source"] = source
     atoms.info.update(charge_and_multiplicity(mol))
     return atoms
+
+
+#: Geometries made from SMILES say so in ``info['geometry_source']``, which starts with this.
+EMBEDDED_PREFIX = "rdkit-"
+
+
+def is_embedded(atoms: Atoms) -> bool:
+    """Whether the molecule's coordinates were made from its SMILES by :func:`embed_smiles`."""
+    return str(atoms.info.get("geometry_source", "")).startswith(EMBEDDED_PREFIX)
+
+
+def embedding_settings() -> dict:
+    """What makes an embedded geometry: recorded by models trained on such geometries, so that
+    candidates embedded differently (another recipe or RDKit version) can be told apart."""
+    return {"method": "ETKDGv3 + MMFF94 (UFF where MMFF94 has no parameters), lowest force-field energy",
+            "conformers": CONFORMERS, "seed": EMBED_SEED, "force_field_steps": MAX_FORCE_FIELD_STEPS,
+            "rdkit": rdBase.rdkitVersion}
+
+
+def _embedded(parsed: Chem.Mol, seed: int, conformers: int) -> tuple[Chem.Mol | None, str]:
+    """The molecule with hydrogens and at least one conformer, and how it was made;
+    ``(None, ...)`` when every attempt fails."""
+    mol = Chem.AddHs(parsed)
+    for random_start in (False, True):
+        params = AllChem.ETKDGv3()
+        params.randomSeed = int(seed)
+        params.useRandomCoords = random_start
+        if AllChem.EmbedMultipleConfs(mol, int(conformers), params):
+            return mol, "rdkit-etkdg"
+    # Strained cages: distance geometry on the heavy-atom skeleton succeeds more often,
+    # then with other variants and seeds; chirality is left free only when the SMILES states none.
+    stereo_free = Chem.MolToSmiles(parsed) == Chem.MolToSmiles(parsed, isomericSmiles=False)
+    attempts = [(AllChem.ETKDGv3, "etkdg", (seed,), True), (AllChem.ETDG, "etdg", range(1, 6), True)]
+    if stereo_free:
+        attempts.append((AllChem.KDG, "kdg-unconstrained-stereo", range(1, 6), False))
+    for method, name, seeds, enforce_chirality in attempts:
+        for attempt_seed in seeds:
+            skeleton = Chem.Mol(parsed)
+            params = method()
+            params.randomSeed = int(attempt_seed)
+            params.useRandomCoords = True
+            params.enforceChirality = enforce_chirality
+            if AllChem.EmbedMolecule(skeleton, params) == 0:
+                return Chem.AddHs(skeleton, addCoords=True), f"rdkit-{name}-skeleton"
+    if stereo_free:
+        flat = _from_layout(parsed, seed)
+        if flat is not None:
+            return flat, "rdkit-2d-layout"
+    return None, ""
+
+
+def _from_layout(parsed: Chem.Mol, seed: int) -> Chem.Mol | None:
+    """A 2D depiction lifted off the plane by small random heights and minimised with MMFF94;
+    None when the minimum keeps a bond longer than 2 Angstrom (a tangled start)."""
+    mol = Chem.AddHs(parsed)
+    if not AllChem.MMFFHasAllMoleculeParams(mol):
+        return None
+    AllChem.Compute2DCoords(mol)
+    conformer = mol.GetConformer()
+    flat = np.array(conformer.GetPositions())
+    flat[:, 2] = np.random.default_rng(seed).normal(scale=0.5, size=len(flat))
+    for i, position in enumerate(flat):
+        conformer.SetAtomPosition(i, position.tolist())
+    AllChem.MMFFOptimizeMolecule(mol, maxIters=5 * MAX_FORCE_FIELD_STEPS)
+    positions = np.array(conformer.GetPositions())
+    bonds = np.array([[b.GetBeginAtomIdx(), b.GetEndAtomIdx()] for b in mol.GetBonds()])
+    longest = np.linalg.norm(positions[bonds[:, 0]] - positions[bonds[:, 1]], axis=1).max() if len(bonds) else 0.0
+    return mol if longest < 2.0 else None
+
+
+def _lowest_after_minimising(mol: Chem.Mol) -> tuple[int, str, float]:
+    """Minimise every conformer; the id of the lowest in force-field energy, the force field
+    and that energy (kcal/mol, the force field's unit)."""
+    if AllChem.MMFFHasAllMoleculeParams(mol):
+        results, force_field = AllChem.MMFFOptimizeMoleculeConfs(mol, maxIters=MAX_FORCE_FIELD_STEPS, numThreads=1), "mmff94"
+    else:
+        # MMFF94 lacks parameters for some elements and charge states; UFF covers the table.
+        results, force_field = AllChem.UFFOptimizeMoleculeConfs(mol, maxIters=MAX_FORCE_FIELD_STEPS, numThreads=1), "uff"
+    ids = [conformer.GetId() for conformer in mol.GetConformers()]
+    energies = [energy for _converged, energy in results]
+    lowest = int(np.argmin(energies))
+    return ids[lowest], force_field, float(energies[lowest])
 
 
 def charge_and_multiplicity(mol: Chem.Mol) -> dict[str, int]:

@@ -5,8 +5,10 @@ it: far from every training molecule, chemistry no training molecule showed (see
 :mod:`molinv.screening.coverage`), or a name already used by an earlier row);
 ``failed`` (not predicted: unreadable record, an element the model was not trained
 on, or a charge/spin state it was not trained on: no descriptor here sees charge or
-spin, so the number would belong to another species). Geometries made from SMILES say so in ``geometry_source``: a
-model trained on quantum-chemistry geometries is less accurate on force-field ones.
+spin, so the number would belong to another species). Candidates are first brought onto the model's geometry route
+(:meth:`~molinv.recipes.EnergyModel.onto_route`): a model trained on geometries made
+from SMILES embeds candidates given with coordinates anew from their SMILES, and a
+model trained on coordinates from files flags candidates embedded from SMILES.
 """
 
 from __future__ import annotations
@@ -70,16 +72,21 @@ def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejec
     :class:`~molinv.screening.applicability.ApplicabilityCheck`), and with ``rank`` the
     columns of :func:`finish_ranking`.
     """
-    rows, usable = [], []
-    for atoms in molecules:
+    rows, usable, route_flags = [], [], {}
+    molecules, route_notes = model.onto_route(molecules)
+    for atoms, route_note in zip(molecules, route_notes):
         row = {"record": atoms.info.get("record"), "name": atoms.info.get("name"),
                "smiles": atoms.info.get("smiles", ""), "formula": atoms.get_chemical_formula(), "n_atoms": len(atoms),
                **stated_state(atoms), "geometry_source": atoms.info.get("geometry_source", "file"), "status": "ok",
                "reason": ""}
         refusal = describable(model.descriptor_, atoms) or model.chemistry_.refusal(atoms)
-        if refusal:
+        if route_note and route_note[0] == "failed":
+            row.update(status="failed", reason=route_note[1])
+        elif refusal:
             row.update(status="failed", reason=refusal)
         else:
+            if route_note:
+                route_flags[len(rows)] = route_note[1]
             usable.append(len(rows))
         rows.append(row)
     rows += [{"record": r.record, "name": r.name, "smiles": "", "formula": "", "n_atoms": np.nan, "charge": np.nan,
@@ -95,6 +102,7 @@ def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejec
         table.loc[usable, std_column] = convert_energy(assessed["std"], "eV", unit)
         table.loc[usable, "domain_distance"] = assessed["distance"] / model.applicability_.threshold_
         for row, why in zip(usable, assessed["outside_because"]):
+            why = "; ".join(reason for reason in (route_flags.get(row, ""), why) if reason)
             if why:
                 table.loc[row, ["status", "reason"]] = ["flagged", why]
     table = whole_numbers(table.sort_values("record", kind="stable", na_position="last").reset_index(drop=True))
