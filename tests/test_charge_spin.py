@@ -113,7 +113,8 @@ def test_model_records_training_states_and_fails_other_states(neutral_model, tmp
     table = prediction_table(neutral_model, result.molecules, result.rejected, target="atomization_energy")
     assert len(table) == 6
     rows = table.set_index("name")
-    assert rows.loc["ethanol", "status"] == "ok"
+    # Predicted (the model learnt from QM9's own geometries, so an embedded SMILES may be flagged for that).
+    assert rows.loc["ethanol", "status"] != "failed" and "trained on" not in rows.loc["ethanol", "reason"]
     assert (rows.loc["ethanol", "charge"], rows.loc["ethanol", "multiplicity"]) == (0, 1)
     assert rows.loc["acetate", "charge"] == -1 and rows.loc["oxygen triplet", "multiplicity"] == 3
     for name in ("acetate", "ammonium", "methyl", "oxygen triplet"):
@@ -125,11 +126,10 @@ def test_model_records_training_states_and_fails_other_states(neutral_model, tmp
     assert rows.loc["typo", "status"] == "failed" and pd.isna(rows.loc["typo", "charge"])
 
 
-def test_charged_training_set_is_recorded(qm9):
-    train = qm9.molecules(qm9.sample(40, seed=2, elements=["H", "C", "N", "O"]))
-    ions = [embed_smiles(s) for s in ("CC(=O)[O-]", "CCC(=O)[O-]", "C[NH3+]")]
-    molecules = train + ions
-    energies = np.array([m.info.get("atomization_energy", 30.0) for m in molecules])
+def test_charged_training_set_is_recorded():
+    smiles = ["CCO", "CCCO", "CC(C)O", "CCN", "CC=O", "CCCC", "CC(=O)[O-]", "CCC(=O)[O-]", "C[NH3+]"]
+    molecules = [embed_smiles(s) for s in smiles]
+    energies = np.arange(len(molecules), dtype=float)  # invented: only the recorded states are checked
     model = EnergyModel(make_descriptor("counts"), make_regressor("baseline", per_atom=False)).fit(molecules, energies)
     assert model.chemistry_.states_ == [(-1, 1), (0, 1), (1, 1)]
     assert model.chemistry_.refusal(embed_smiles("CCCC(=O)[O-]")) == ""
