@@ -394,7 +394,6 @@ def screen(args, model, metadata, out: Path, chunk_size: int, parquet: bool):
 
 
 def run_screen(args) -> int:
-    from .molecules.route import describe_route
     from .recipes import EnergyModel
 
     model, metadata = EnergyModel.load(args.model_file)
@@ -402,7 +401,7 @@ def run_screen(args) -> int:
         raise CommandError("screen reads candidate files (.smi, .csv, .sdf, .xyz); use 'predict' for QM9 samples")
     summary = screen(args, model, metadata, args.out, args.chunk_size, args.parquet)
     print(summary.text(args.unit))
-    print(f"model's geometry route: {describe_route(model.route_)}")
+    print(f"summary page: {args.out / 'summary.html'}")
     if summary.computed:
         seconds = [report.seconds for report in summary.computed]
         print(f"{len(seconds)} chunks computed in this run, {sum(seconds) / len(seconds):.1f} s each on average "

@@ -5,6 +5,8 @@ Data: QM9 (Ramakrishnan et al., Sci. Data 1, 140022, 2014), which holds no carbo
 sample used here is checked again below).
 """
 
+import re
+
 import numpy as np
 import pytest
 from ase import Atoms
@@ -68,3 +70,16 @@ def test_held_out_qm9_molecules_are_rarely_flagged(model, split):
     unseen = [model.chemistry_.unseen(atoms) for atoms in test]
     # 300 training molecules; 500 held out. Measured: 1.2% flagged (rare rings, urea).
     assert np.mean([bool(reason) for reason in unseen]) < 0.03
+
+
+def test_screen_summaries_count_the_reasons(model, tmp_path):
+    from molinv.screening.screen import screen_file
+
+    path = tmp_path / "acids.csv"
+    path.write_text("name,smiles\n" + "".join(f"{name},{smiles}\n" for name, smiles in ACIDS.items()) + "typo,C1CC\n")
+    screen_file(model, path, tmp_path / "screen", model_fingerprint="m", target="atomization_energy", chunk_size=2)
+    text = (tmp_path / "screen" / "summary.txt").read_text()
+    assert re.search(r"\n +3  carboxylic acid: none in the training set\n", text)
+    assert re.search(r"\n +1  RDKit cannot parse SMILES '…': SMILES Parse Error: unclosed ring for input: '…'\n", text)
+    page = (tmp_path / "screen" / "summary.html").read_text()
+    assert "<td>3</td><td>carboxylic acid: none in the training set</td>" in page and "Caution" in page

@@ -30,7 +30,9 @@ from __future__ import annotations
 import csv
 import heapq
 import os
+import re
 import tempfile
+from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterable, Iterator
@@ -152,6 +154,18 @@ def whole_numbers(table: pd.DataFrame) -> pd.DataFrame:
     return table.astype({column: "Int64" for column in present})
 
 
+def reason_kinds(reasons: pd.Series) -> Counter:
+    """How often each kind of reason occurs: every '; '-separated part, without its parenthesised
+    detail, names and numbers ('unlike the training molecules', "molecule '…' has N atoms, ...")."""
+    kinds = Counter()
+    for text in reason_text(reasons):
+        for part in filter(None, text.split("; ")):
+            # Charges stay ('charge -1 singlet'): a few distinct values, each telling.
+            kind = re.sub(r"(?<!charge )(?<![-+\d])[-+]?\d+(\.\d+)?", "N", re.sub(r"'[^']*'", "'…'", part.split(" (")[0]))
+            kinds[kind.strip()] += 1
+    return kinds
+
+
 def reason_text(reasons: pd.Series) -> pd.Series:
     # Read back from chunk files, a column of empty reasons is all NaN (float): make it text first.
     return reasons.fillna("").astype(str)
@@ -242,6 +256,8 @@ class RankedFiles:
     rows: int
     counts: dict[str, int]
     top: pd.DataFrame
+    #: Kinds of reason of the rows not 'ok', with their counts (:func:`reason_kinds`).
+    reasons: Counter = field(default_factory=Counter)
 
 
 def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None, top: int = 10,
@@ -284,7 +300,7 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
                                                     dtype="Int64")})
     if parquet_path is not None:
         write_parquet(csv_path, parquet_path, runs.dtypes, run_rows, book.ranks)
-    return RankedFiles(book.rows, runs.counts, best)
+    return RankedFiles(book.rows, runs.counts, best, runs.reasons)
 
 
 class RunWriter:
@@ -299,6 +315,7 @@ class RunWriter:
         self.pending: list[tuple[pd.DataFrame, pd.DataFrame]] = []
         self.paths: list[Path] = []
         self.counts: dict[str, int] = {}
+        self.reasons = Counter()
         self.leaders = self.leader_keys = self.dtypes = None
 
     def add(self, rows: pd.DataFrame, keys: pd.DataFrame) -> None:
@@ -306,6 +323,7 @@ class RunWriter:
         for status, count in rows["status"].value_counts().items():
             self.counts[status] = self.counts.get(status, 0) + int(count)
         ok = (rows["status"] == "ok").to_numpy()
+        self.reasons.update(reason_kinds(rows.loc[~ok, "reason"]))
         if self.relative_column is not None:
             ok = ok & (rows[self.relative_column] == 0).to_numpy()
         leaders = [(rows[ok], keys[ok])] + ([] if self.leaders is None else [(self.leaders, self.leader_keys)])
