@@ -270,7 +270,7 @@ class EnergyModel(RegressorMixin, BaseEstimator):
     def save(self, path, target: str = "energy", training: dict | None = None):
         """Write the model file; energies in eV, lengths in Angstrom."""
         check_is_fitted(self, "regressor_")
-        numbers, arrays = self.applicability_.state()
+        numbers, arrays = self.applicability_.state(getattr(self.regressor_, "train_values_", None))
         arrays.update({DESCRIPTOR_ARRAY_PREFIX + name: a for name, a in self.descriptor_.fitted_arrays().items()})
         metadata = {"descriptor": self.descriptor_.settings(), "units": {"energy": "eV", "length": "Angstrom"},
                     "target": target, "training": training or {}, "applicability": numbers, "route": self.route_,
@@ -286,7 +286,8 @@ class EnergyModel(RegressorMixin, BaseEstimator):
             name[len(DESCRIPTOR_ARRAY_PREFIX):]: a for name, a in extra.items() if name.startswith(DESCRIPTOR_ARRAY_PREFIX)})
         model = cls(descriptor, regressor)
         model.descriptor_, model.regressor_ = descriptor, regressor
-        model.applicability_ = ApplicabilityCheck.from_state(metadata["applicability"], extra)
+        model.applicability_ = ApplicabilityCheck.from_state(metadata["applicability"], extra,
+                                                             getattr(regressor, "train_values_", None))
         # Model files written before routes were recorded were all trained on file coordinates.
         model.route_ = metadata.get("route") or routes.route_settings(routes.FILE, "not recorded")
         model.chemistry_ = TrainingChemistry.from_state(metadata.get("chemistry"))

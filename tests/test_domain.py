@@ -57,3 +57,20 @@ def test_held_out_molecules_are_flagged_near_the_quantile_rate(split, name, scal
     assert 0.4 < np.quantile(ratios, 0.99) < 2.0
     small = [m for m in (embed_smiles(s) for s in SMALL_QM9_MOLECULES) if not describable(descriptor, m)]
     assert np.all(check.distances(model_inputs(descriptor, small)) / check.threshold_ < 3)
+
+
+def test_an_atom_kernel_model_file_keeps_the_training_atoms_once(qm9, tmp_path):
+    train = qm9.molecules(qm9.sample(60, seed=3, elements=["H", "C", "N", "O"]))
+    model = EnergyModel(make_descriptor("atoms"), make_regressor("kernel", True)).fit(
+        train, [m.info["atomization_energy"] for m in train])
+    path = model.save(tmp_path / "model.npz")
+    stored = np.load(path)
+    assert not [name for name in stored.files if "references_" in name and "rows" not in name]
+    vectors = stored["array.train_values_"].nbytes
+    assert path.stat().st_size < 1.2 * vectors  # the atom vectors once (they were stored twice)
+    loaded, _ = EnergyModel.load(path)
+    test = qm9.molecules(qm9.sample(20, seed=4, elements=["H", "C", "N", "O"]))
+    before, after = model.assess(test), loaded.assess(test)
+    np.testing.assert_array_equal(after["distance"], before["distance"])
+    np.testing.assert_array_equal(after["predicted"], before["predicted"])
+    np.testing.assert_array_equal(after["std"], before["std"])
