@@ -84,10 +84,10 @@ def atoms_from_rdkit(mol: Chem.Mol, conformer_id: int = -1) -> Atoms:
     return Atoms(numbers=numbers, positions=positions)
 
 
-def embed_smiles(smiles: str, seed: int = EMBED_SEED, optimize: bool = True, conformers: int = CONFORMERS) -> Atoms:
+def embed_smiles(smiles: str, seed: int = EMBED_SEED, optimize: bool = True, conformers: int | None = None) -> Atoms:
     """3D geometry with explicit hydrogens for a SMILES string.
 
-    ETKDG draws ``conformers`` geometries, each is minimised with MMFF94 (UFF where
+    ETKDG draws ``conformers`` geometries (default :data:`CONFORMERS`), each is minimised with MMFF94 (UFF where
     MMFF94 has no parameters) and the one of lowest force-field energy is kept.
     When distance geometry fails (strained cages, about 1% of QM9), it is retried
     on the heavy-atom skeleton (hydrogens added afterwards), with other variants of
@@ -110,7 +110,7 @@ def embed_smiles(smiles: str, seed: int = EMBED_SEED, optimize: bool = True, con
         )
     with rdkit_messages() as messages:
         try:
-            mol, source = _embedded(parsed, seed, conformers)
+            mol, source = _embedded(parsed, seed, CONFORMERS if conformers is None else conformers)
             if mol is None:
                 raise MoleculeError(f"RDKit cannot embed SMILES {smiles!r} in 3D: distance geometry failed with "
                                     "every method tried (ETKDG, on the heavy-atom skeleton, ETDG, KDG, 2D layout)")

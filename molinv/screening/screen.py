@@ -59,6 +59,7 @@ class ScreenSummary:
 
     def text(self, unit: str) -> str:
         lines = [f"{self.rows} candidates: {self.ok} ok, {self.flagged} flagged, {self.failed} failed",
+                 f"model's geometry route: {self.route}",
                  f"table: {self.table_path}, {self.ranking}"]
         if RANK_COLUMN in self.top.columns:
             lines.append("most stable predicted isomer of each formula (ok rows, formulas in text order):")
@@ -71,7 +72,7 @@ class ScreenSummary:
         if self.reasons:
             lines.append("most frequent reasons to flag or fail (rows):")
             lines += [f"  {count:>7}  {kind}" for kind, count in self.reasons.most_common(SHOWN_REASON_KINDS)]
-        lines += [f"model's geometry route: {self.route}", f"Caution: {CAUTION}"]
+        lines.append(f"Caution: {CAUTION}")
         return "\n".join(lines)
 
     def html(self, title: str) -> str:
