@@ -153,9 +153,23 @@ def write_rejected(rejected, path: Path) -> None:
         spreadsheet_safe(table).to_csv(temporary, index=False)
 
 
+def write_geometries(path: Path, molecules) -> None:
+    from .molecules import write_molecules
+
+    write_molecules(path, molecules)
+    print(f"{len(molecules)} geometries (Angstrom) with name, charge and multiplicity -> {path}")
+
+
 def run_check(args) -> int:
+    from collections import Counter
+
+    from .molecules.electrons import electronic_state, state_name
+
     result = read_input(args, require_energy=args.require_energy)
     report_rejected(result, limit=len(result.rejected))
+    states = Counter(state_name(*electronic_state(atoms)) for atoms in result.molecules)
+    if states:
+        print("charge and spin: " + ", ".join(f"{n} {state}" for state, n in states.most_common()))
     if args.rejected_out:
         write_rejected(result.rejected, args.rejected_out)
         print(f"rejected records written to {args.rejected_out}")
@@ -168,13 +182,14 @@ def add_recipe_options(parser, several: bool = False) -> None:
     described = "; ".join(f"{k}: {v[3]}" for k, v in DESCRIPTORS.items())
     if several:
         parser.add_argument("--descriptor", action="append", choices=list(DESCRIPTORS), metavar="NAME",
-                            help=f"descriptor, repeat for several curves side by side ({described})")
+                            help=f"descriptor, repeat for several curves side by side (default atoms; {described})")
         parser.add_argument("--model", action="append", choices=list(MODEL_HELP), metavar="NAME",
-                            help="model, one per --descriptor or one for all (" + "; ".join(f"{k}: {v}" for k, v in MODEL_HELP.items()) + ")")
+                            help="model, one per --descriptor or one for all (default kernel; " + "; ".join(f"{k}: {v}" for k, v in MODEL_HELP.items()) + ")")
     else:
-        parser.add_argument("--descriptor", default="atoms", choices=list(DESCRIPTORS), metavar="NAME", help=described)
+        parser.add_argument("--descriptor", default="atoms", choices=list(DESCRIPTORS), metavar="NAME",
+                            help=f"default atoms. {described}")
         parser.add_argument("--model", default="kernel", choices=list(MODEL_HELP), metavar="NAME",
-                            help="; ".join(f"{k}: {v}" for k, v in MODEL_HELP.items()))
+                            help="default kernel. " + "; ".join(f"{k}: {v}" for k, v in MODEL_HELP.items()))
     parser.add_argument("--cache", type=Path, default=None,
                         help="folder of cached descriptor values (default: none; reruns then recompute)")
     parser.add_argument("--jobs", type=int, default=1, help="worker processes for describing molecules")
@@ -280,21 +295,23 @@ def run_describe(args) -> int:
 
 
 def run_fit(args) -> int:
-    from .evaluation.curves import chosen_hyperparameters
+    from .evaluation.curves import fit_summary
+    from .molecules.electrons import state_name
     from .molecules.route import describe_route
     from .molecules.units import convert_energy
 
     molecules, energies = labelled(args)
     model = energy_model(args.descriptor, args.model, args).fit(molecules, energies)
-    path = model.save(args.out, target=energy_key(args),
-                      training={"source": str(args.input), "n_molecules": len(molecules)})
+    target = energy_key(args)
+    path = model.save(args.out, target=target, training={"source": str(args.input), "n_molecules": len(molecules)})
     print(f"model fitted on {len(molecules)} molecules -> {path}")
     print(f"geometry route: {describe_route(model.route_)}")
-    chosen = chosen_hyperparameters(model.regressor_)
-    if chosen:
-        print("hyperparameters: " + ", ".join(f"{k}={v:g}" for k, v in chosen.items()))
+    for line in fit_summary(model.regressor_):
+        print(line)
     spread = convert_energy(float(energies.std()), "eV", "kcal/mol")
-    print(f"training energies spread (standard deviation): {spread:.2f} kcal/mol")
+    print(f"training {target} values spread (standard deviation): {spread:.2f} kcal/mol")
+    states = ", ".join(state_name(*state) for state in model.chemistry_.states_)
+    print(f"trained on {states} molecules; predict and screen fail molecules in other charge or spin states")
     return 0
 
 
@@ -305,10 +322,15 @@ def run_predict(args) -> int:
     from .molecules.route import describe_route
     from .recipes import EnergyModel
     from .screening import CAUTION, prediction_table
+    from .screening.held_out import compare_with_references
+    from .screening.ranking import ranking_note
 
     from .screening.spreadsheet import spreadsheet_safe
 
     model, metadata = EnergyModel.load(args.model_file)
+    compared = []
+    if args.geometries and (args.cluster or args.jobs != 1):
+        raise CommandError("--geometries works without --jobs and --cluster (the molecules stay in the workers)")
     if args.cluster or args.jobs != 1:
         # Chunks beside the output, so that an interrupted prediction resumes.
         summary = screen(args, model, metadata, folder_beside(args.out), chunk_size=1000, parquet=False)
@@ -316,10 +338,18 @@ def run_predict(args) -> int:
     else:
         result = read_input(args, require_energy=False)
         table = prediction_table(model, result.molecules, result.rejected, unit=args.unit, target=metadata["target"])
+        if energy_key(args) == metadata["target"]:
+            table, compared = compare_with_references(table, result.molecules, energy_key(args), metadata["target"],
+                                                      args.unit, getattr(model.regressor_, "interval_level", 0.9))
     with written_atomically(args.out) as temporary:
         spreadsheet_safe(table).to_csv(temporary, index=False)
     counts = table["status"].value_counts().to_dict()
     print(f"{len(table)} rows -> {args.out}: " + ", ".join(f"{n} {s}" for s, n in counts.items()))
+    for line in compared:
+        print(line)
+    if args.geometries:
+        write_geometries(args.geometries, result.molecules)
+    print(f"table {ranking_note(metadata['target'])}")
     print(f"model's geometry route: {describe_route(model.route_)}")
     print(f"Caution: {CAUTION}")
     return 0
@@ -390,6 +420,7 @@ def run_screen(args) -> int:
         raise CommandError("screen reads candidate files (.smi, .csv, .sdf, .xyz); use 'predict' for QM9 samples")
     summary = screen(args, model, metadata, args.out, args.chunk_size, args.parquet)
     print(summary.text(args.unit))
+    print(f"summary page: {args.out / 'summary.html'}")
     if summary.computed:
         seconds = [report.seconds for report in summary.computed]
         print(f"{len(seconds)} chunks computed in this run, {sum(seconds) / len(seconds):.1f} s each on average "
@@ -409,13 +440,17 @@ def add_method_options(parser) -> None:
     parser.add_argument("--cartesian", action="store_true", help="Cartesian d and f functions (default spherical)")
     parser.add_argument("--grid-level", type=int, default=3, help="PySCF DFT grid level 0-9 (default 3)")
     parser.add_argument("--max-cycles", type=int, default=100, help="SCF iterations before giving up (default 100)")
+    parser.add_argument("--optimize", action="store_true",
+                        help="move each molecule to its GFN2-xTB minimum first (tblite, BFGS to 0.02 eV/Angstrom) and "
+                             "compute the energy there; the method reads METHOD//GFN2-xTB and geometry_source says "
+                             "where the optimisation started (default: a single point on the input geometry)")
 
 
 def label_method(args):
     from .labels import LabelMethod
 
     return LabelMethod(args.method, functional=args.functional, basis=args.basis, grid_level=args.grid_level,
-                       max_cycles=args.max_cycles, cartesian=args.cartesian)
+                       max_cycles=args.max_cycles, cartesian=args.cartesian, optimize=args.optimize)
 
 
 def run_label(args) -> int:
@@ -428,9 +463,13 @@ def run_label(args) -> int:
     report_rejected(result)
     if not result.molecules:
         raise CommandError("no usable molecules to compute")
+    if args.multiplicity is not None:
+        for atoms in result.molecules:
+            atoms.info["multiplicity"] = args.multiplicity
     with executor(args) if args.cluster else nullcontext() as runner:
         summary = label_molecules(result.molecules, method, args.out, n_jobs=args.jobs, chunk_size=args.chunk_size,
-                                  retry_failed=args.retry_failed, progress=True, executor=runner)
+                                  retry_failed=args.retry_failed, progress=True, executor=runner,
+                                  geometries=args.out.with_suffix(".xyz"))
     print(f"{method.name}: {summary.text()}")
     table = read_labels(args.out, method)
     failed = table[table["status"] == "failed"]
@@ -439,6 +478,8 @@ def run_label(args) -> int:
     if len(failed) > 10:
         print(f"  ... and {len(failed) - 10} more (status 'failed' in {args.out})")
     print("energies in Hartree and eV; atomization energies (eV) from free atoms computed with the same method")
+    print(f"computed geometries with their energies, charge and multiplicity: {args.out.with_suffix('.xyz')} "
+          f"(molinv fit {args.out.with_suffix('.xyz')} --energy-key atomization_energy)")
     return 0
 
 
@@ -455,42 +496,33 @@ def add_strategy_options(parser, choices) -> None:
 
 
 def run_pick(args) -> int:
-    import pandas as pd
-
-    from .labels.choose import STRATEGIES, choose_next
-    from .molecules.units import convert_energy
+    from .labels.choose import STRATEGIES, pick_table
     from .recipes import EnergyModel
     from .screening.spreadsheet import spreadsheet_safe
 
     model, metadata = EnergyModel.load(args.model_file)
     result = read_input(args, require_energy=False)
     report_rejected(result)
-    if args.k > len(result.molecules):
-        raise CommandError(f"cannot pick {args.k} of {len(result.molecules)} candidates")
     labelled = None
     if args.labelled:
         from .molecules import read_molecules
 
         labelled = read_molecules(args.labelled).molecules
-    choice = choose_next(model, result.molecules, args.k, shortlist_factor=args.shortlist, labelled=labelled,
-                         strategy=args.strategy, reference_size=args.reference, seed=args.seed)
-    order = {int(p): rank + 1 for rank, p in enumerate(choice["picked"])}
-    table = pd.DataFrame({
-        "name": [str(a.info.get("name", f"molecule_{i}")) for i, a in enumerate(result.molecules)],
-        "formula": [a.get_chemical_formula() for a in result.molecules],
-        f"{metadata['target']}_{args.unit}": convert_energy(choice["predicted"], "eV", args.unit),
-        f"std_{args.unit}": convert_energy(choice["std"], "eV", args.unit),
-        "pick_order": [order.get(i, "") for i in range(len(result.molecules))],
-        "reason": choice["reason"],
-    })
+    table = pick_table(model, result.molecules, result.rejected, args.k, unit=args.unit, target=metadata["target"],
+                       include_far=args.include_far, shortlist_factor=args.shortlist, labelled=labelled,
+                       strategy=args.strategy, reference_size=args.reference, seed=args.seed)
     with written_atomically(args.out) as temporary:
         spreadsheet_safe(table).to_csv(temporary, index=False)
-    picked = table[table["pick_order"] != ""].sort_values("pick_order").drop(columns="reason")
-    print(f"picked {args.k} of {len(table)} candidates ({STRATEGIES[args.strategy]}) -> {args.out}")
-    print(picked.to_string(index=False, float_format=lambda v: f"{v:.2f}"))
-    skipped = int((table["reason"] != "").sum())
-    if skipped:
-        print(f"{skipped} candidates not describable by this model (reason column in {args.out})")
+    picked = table[table["pick_order"].notna()].sort_values("pick_order")
+    if args.geometries:
+        by_record = {atoms.info["record"]: atoms for atoms in result.molecules}
+        write_geometries(args.geometries, [by_record[record] for record in picked["record"]])
+    shown = ["pick_order", "record", "name", "formula", f"{metadata['target']}_{args.unit}", f"std_{args.unit}", "status"]
+    print(f"picked {args.k} of {len(table)} rows ({STRATEGIES[args.strategy]}) -> {args.out}")
+    print(picked[shown].to_string(index=False, float_format=lambda v: f"{v:.2f}"))
+    counts = table["status"].value_counts().to_dict()
+    print("rows: " + ", ".join(f"{n} {s}" for s, n in counts.items()) + " (failed rows are never picked; "
+          f"the reason column of {args.out} says why)")
     return 0
 
 
@@ -636,6 +668,9 @@ def build_parser() -> argparse.ArgumentParser:
     add_input_options(predict)
     predict.add_argument("--unit", default="kcal/mol", help="energy unit of the output table (default kcal/mol)")
     predict.add_argument("--out", type=Path, required=True, help="table to write (.csv)")
+    predict.add_argument("--geometries", type=Path, metavar="PATH",
+                         help="also write the molecules predicted on (.xyz extended XYZ or .sdf), with name, "
+                              "charge and multiplicity, for a quantum-chemistry step")
     add_execution_options(predict)
     predict.set_defaults(run=run_predict)
 
@@ -674,30 +709,46 @@ def build_parser() -> argparse.ArgumentParser:
                              description="Compute the total and atomization energy of every molecule with PySCF or "
                                          "tblite, in parallel single-thread processes or on a Dask cluster; each "
                                          "chunk's rows are written as it finishes (via OUT.chunks/), failures keep "
-                                         "their reason, and a rerun skips names already in the file. Closed-shell "
-                                         "molecules only. " + UNITS_HELP)
+                                         "their reason, and a rerun skips names already in the file. Each molecule is "
+                                         "computed at its charge and spin multiplicity (columns charge and "
+                                         "multiplicity): restricted for closed shells, unrestricted for open "
+                                         "shells. " + UNITS_HELP)
     add_input_options(label)
     add_method_options(label)
     label.add_argument("--jobs", type=int, default=1, help="worker processes, one thread each (default 1)")
     label.add_argument("--chunk-size", type=int, default=None,
                        help="molecules per task (default 1 for hf/dft, 16 for xtb)")
+    label.add_argument("--multiplicity", type=int, default=None,
+                       help="spin multiplicity 2S+1 to compute every molecule at, overriding the input's (default: "
+                            "the input's: SMILES radicals, an extended-XYZ or CSV 'multiplicity' field; where it "
+                            "cannot say, singlet, or doublet for an odd electron count). SMILES O=O reads as a "
+                            "singlet: give 3 for ground-state O2")
     label.add_argument("--retry-failed", action="store_true", help="recompute molecules whose earlier row failed")
-    label.add_argument("--out", type=Path, required=True, help="labels file (.csv), appended to")
+    label.add_argument("--out", type=Path, required=True,
+                       help="labels file (.csv), appended to; the computed geometries go beside it (.xyz)")
     add_execution_options(label, jobs=False)
     label.set_defaults(run=run_label)
 
     pick = verbs.add_parser("pick", help="choose the next k candidates worth computing",
                             description="Predict every candidate with a model file and pick k of them: by default "
                                         "among the most uncertain, spread out in descriptor space (greedy farthest "
-                                        "point); see --strategy. " + UNITS_HELP)
+                                        "point); see --strategy. The table has every input row once, with its status; "
+                                        "failed rows (unreadable, elements or charge/spin state outside the "
+                                        "training set) are never picked. " + UNITS_HELP)
     pick.add_argument("model_file", type=Path, help="model file written by 'molinv fit' (model kernel or large)")
     add_input_options(pick)
     pick.add_argument("--k", type=int, default=10, help="how many to pick (default 10)")
     pick.add_argument("--labelled", type=Path, help="molecules already computed: candidates near them count as near")
     add_strategy_options(pick, ["uncertain", "spread", "variance"])
     pick.add_argument("--seed", type=int, default=0, help="seed of the reference sample of --strategy variance")
+    pick.add_argument("--include-far", action="store_true",
+                      help="also pick candidates with more than 1.5 times the non-hydrogen atoms of any training "
+                           "molecule (default: not picked, one label does not make the model fit for them)")
     pick.add_argument("--unit", default="kcal/mol", help="energy unit of the output (default kcal/mol)")
     pick.add_argument("--out", type=Path, required=True, help="table of all candidates with pick_order (.csv)")
+    pick.add_argument("--geometries", type=Path, metavar="PATH",
+                      help="also write the picked molecules in pick order (.xyz extended XYZ or .sdf), with name, "
+                           "charge and multiplicity, for the quantum-chemistry step")
     pick.set_defaults(run=run_pick)
 
     loop = verbs.add_parser("pick-loop", help="repeat pick, compute, refit and measure for several rounds",

@@ -21,6 +21,7 @@ from molinv.models.inputs import with_element_counts
 from molinv.models.modelfile import load_model, read_extra_arrays, save_model
 from molinv.molecules import route as routes
 from molinv.screening.applicability import ApplicabilityCheck
+from molinv.screening.coverage import TrainingChemistry
 
 #: Descriptor choices: our name -> (module, class, parameters, what it is).
 DESCRIPTORS = {
@@ -160,6 +161,12 @@ def model_inputs(descriptor: MoleculeDescriptor, molecules, feature_store=None):
     return with_element_counts(features, molecules, descriptor.elements_)
 
 
+def standardises(regressor) -> bool:
+    """Whether a fitted regressor standardises its feature columns (so distances between molecules
+    are measured as its kernel measures them)."""
+    return bool(getattr(regressor, "scale", False))
+
+
 class EnergyModel(RegressorMixin, BaseEstimator):
     """Descriptor then regressor, as one estimator over lists of ``ase.Atoms``.
 
@@ -193,7 +200,8 @@ class EnergyModel(RegressorMixin, BaseEstimator):
         self.descriptor_ = clone(self.descriptor).fit(molecules)
         inputs = self._inputs(molecules)
         self.regressor_ = clone(self.regressor).fit(inputs, np.asarray(y, dtype=float))
-        self.applicability_ = ApplicabilityCheck().fit(inputs)
+        self.applicability_ = ApplicabilityCheck(scale=standardises(self.regressor_)).fit(inputs)
+        self.chemistry_ = TrainingChemistry().fit(molecules)
         return self
 
     def onto_route(self, molecules, n_jobs: int = 1, progress: bool | None = None) -> tuple[list, list]:
@@ -219,24 +227,28 @@ class EnergyModel(RegressorMixin, BaseEstimator):
             if routes.route_of(atoms) == routes.EMBEDDED:
                 notes[i] = ("flagged", "geometry made from the SMILES by a force field, but the model learnt from "
                                        f"{routes.describe_route(self.route_)}: on QM9 such a model errs several "
-                                       "times more on force-field geometries and its error bars do not hold; fit "
-                                       "on SMILES (--route embed) to screen SMILES")
+                                       "times more on force-field geometries and its error bars do not hold (fit "
+                                       "on SMILES, --route embed, to screen SMILES)")
         return molecules, notes
 
     def assess(self, molecules) -> dict[str, np.ndarray]:
         """Predicted energy (eV), its standard deviation (eV, NaN if the model gives none),
-        nearest-training-neighbour distance, and why each lies outside the training domain
-        ('' when it does not; see :class:`ApplicabilityCheck`)."""
+        nearest-training-neighbour distance, what each contains that no training molecule did
+        ('unseen'; see :class:`TrainingChemistry`), and why each lies outside the training domain
+        (both tests; '' when it does not; see :class:`ApplicabilityCheck`)."""
         check_is_fitted(self, "regressor_")
-        inputs = self._inputs(list(molecules))
+        molecules = list(molecules)
+        inputs = self._inputs(molecules)
         if self.gives_std:
             predicted, std = self.regressor_.predict(inputs, return_std=True)
         else:
             predicted = self.regressor_.predict(inputs)
             std = np.full(len(predicted), np.nan)
         distance = self.applicability_.distances(inputs)
+        unseen = [self.chemistry_.unseen(atoms) for atoms in molecules]
+        outside = [("; ".join(filter(None, pair))) for pair in zip(self.applicability_.reasons(inputs, distance), unseen)]
         return {"predicted": np.asarray(predicted, float), "std": np.asarray(std, float), "distance": distance,
-                "outside_because": self.applicability_.reasons(inputs, distance)}
+                "unseen": unseen, "outside_because": outside}
 
     @property
     def gives_std(self) -> bool:
@@ -258,10 +270,11 @@ class EnergyModel(RegressorMixin, BaseEstimator):
     def save(self, path, target: str = "energy", training: dict | None = None):
         """Write the model file; energies in eV, lengths in Angstrom."""
         check_is_fitted(self, "regressor_")
-        numbers, arrays = self.applicability_.state()
+        numbers, arrays = self.applicability_.state(getattr(self.regressor_, "train_values_", None))
         arrays.update({DESCRIPTOR_ARRAY_PREFIX + name: a for name, a in self.descriptor_.fitted_arrays().items()})
         metadata = {"descriptor": self.descriptor_.settings(), "units": {"energy": "eV", "length": "Angstrom"},
-                    "target": target, "training": training or {}, "applicability": numbers, "route": self.route_}
+                    "target": target, "training": training or {}, "applicability": numbers, "route": self.route_,
+                    "chemistry": self.chemistry_.state()}
         return save_model(path, self.regressor_, metadata, extra_arrays=arrays)
 
     @classmethod
@@ -273,7 +286,9 @@ class EnergyModel(RegressorMixin, BaseEstimator):
             name[len(DESCRIPTOR_ARRAY_PREFIX):]: a for name, a in extra.items() if name.startswith(DESCRIPTOR_ARRAY_PREFIX)})
         model = cls(descriptor, regressor)
         model.descriptor_, model.regressor_ = descriptor, regressor
-        model.applicability_ = ApplicabilityCheck.from_state(metadata["applicability"], extra)
+        model.applicability_ = ApplicabilityCheck.from_state(metadata["applicability"], extra,
+                                                             getattr(regressor, "train_values_", None))
         # Model files written before routes were recorded were all trained on file coordinates.
         model.route_ = metadata.get("route") or routes.route_settings(routes.FILE, "not recorded")
+        model.chemistry_ = TrainingChemistry.from_state(metadata.get("chemistry"))
         return model, metadata

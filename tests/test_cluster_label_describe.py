@@ -15,6 +15,7 @@ from ase import units
 
 from molinv.cli import main
 from molinv.labels import LabelMethod, label_molecules, read_labels
+from molinv.molecules import read_molecules
 from molinv.molecules.writing import write_molecules
 
 pytest.importorskip("dask.distributed")
@@ -85,7 +86,8 @@ def test_an_interrupted_labelling_run_keeps_its_finished_chunks(small, local_lab
     from molinv.cluster.dask_cluster import DaskCluster
     from molinv.labels import run
 
-    molecules, _ = small
+    # Read from the file the local run read, so that the rows' geometry_source ('file') agrees too.
+    molecules = read_molecules(small[1]).molecules
     path = tmp_path / "labels.csv"
     move = run._move_rows
 

@@ -97,7 +97,7 @@ def test_coulomb_matrix_rebuilt_from_settings(variant):
 
 def test_coulomb_matrix_too_many_atoms():
     descriptor = CoulombMatrix(elements=["H", "C", "O"]).fit([molecule("H2O")])
-    with pytest.raises(DescriptorError, match="at most 3"):
+    with pytest.raises(DescriptorError, match="more than the 3 this descriptor was fitted for"):
         descriptor.transform([molecule("CH4")])
 
 

@@ -88,8 +88,9 @@ def test_gfn2_xtb_matches_the_value_in_the_tblite_documentation():
 
 
 def test_open_shell_and_unconverged_molecules_fail_with_their_reason():
-    methyl = Atoms("CH3", positions=[[0, 0, 0], [1.08, 0, 0], [-0.54, 0.935, 0], [-0.54, -0.935, 0]])
-    with pytest.raises(LabelFailure, match="odd number of electrons"):
+    methyl = Atoms("CH3", positions=[[0, 0, 0], [1.08, 0, 0], [-0.54, 0.935, 0], [-0.54, -0.935, 0]],
+                   info={"multiplicity": 1})
+    with pytest.raises(LabelFailure, match="does not match the odd number of electrons"):
         total_energy_hartree(methyl, LabelMethod("xtb"))
     with pytest.raises(LabelFailure, match="did not converge in 2 cycles"):
         total_energy_hartree(water_crawford(), LabelMethod("hf", basis="STO-3G", max_cycles=2, convergence=1e-12))

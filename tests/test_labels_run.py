@@ -16,9 +16,9 @@ pytest.importorskip("tblite")
 XTB = LabelMethod("xtb")
 
 
-def methyl_radical():
+def methyl_radical(**info):
     return Atoms("CH3", positions=[[0, 0, 0], [1.08, 0, 0], [-0.54, 0.935, 0], [-0.54, -0.935, 0]],
-                 info={"name": "methyl radical"})
+                 info={"name": "methyl radical", **info})
 
 
 @pytest.fixture(scope="module")
@@ -52,11 +52,11 @@ def test_a_row_cut_short_by_an_interruption_is_computed_again_once(tmp_path, mol
 
 def test_failing_molecules_do_not_stop_the_others(tmp_path, molecules):
     uranium = Atoms("U2", positions=[[0, 0, 0], [0, 0, 2.5]], info={"name": "diuranium"})
-    batch = [molecules[0], methyl_radical(), uranium, molecules[1]]
+    batch = [molecules[0], methyl_radical(multiplicity=1), uranium, molecules[1]]
     summary = label_molecules(batch, XTB, tmp_path / "labels.csv")
     assert (summary.computed, summary.failed) == (4, 2)
     table = read_labels(tmp_path / "labels.csv").set_index("name")
-    assert "odd number of electrons (9)" in table.loc["methyl radical", "reason"]
+    assert "multiplicity 1 does not match the odd number of electrons (9" in table.loc["methyl radical", "reason"]
     assert "unsupported element for GFN2-xTB" in table.loc["diuranium", "reason"]
     ok = table.loc[[molecules[0].info["name"], molecules[1].info["name"]]]
     assert (ok["status"] == "ok").all() and np.isfinite(ok["atomization_energy_eV"]).all()

@@ -167,7 +167,7 @@ class MoleculeDescriptor(TransformerMixin, BaseEstimator):
         molecules = validate_molecules(molecules)
         self._check_elements(molecules)
         chunks = [molecules[i : i + self.chunk_size] for i in range(0, len(molecules), self.chunk_size)]
-        bar = dict(total=len(molecules), unit="mol", desc=type(self).__name__, disable=self._progress_disabled())
+        bar = dict(total=len(molecules), unit="mol", desc="describe molecules", disable=self._progress_disabled())
         results = []
         with tqdm(**bar) as progress:
             if self.n_jobs == 1 or len(chunks) == 1:

@@ -108,9 +108,9 @@ class CoulombMatrix(MoleculeDescriptor):
         for position, atoms in enumerate(molecules):
             if len(atoms) > self.max_atoms_:
                 raise DescriptorError(
-                    f"{molecule_name(atoms, position)} has {len(atoms)} atoms; "
-                    f"this descriptor was fitted for at most {self.max_atoms_}; pass max_atoms to fix the "
-                    "padding before fit (for cross-validation, the largest molecule of the whole data set)"
+                    f"{molecule_name(atoms, position)} has {len(atoms)} atoms, more than the {self.max_atoms_} "
+                    "this descriptor was fitted for: refit with molecules this large among the training "
+                    "molecules (in Python, max_atoms fixes the padding before fit)"
                 )
 
     def _describe_one(self, atoms):
@@ -230,9 +230,9 @@ class BagOfBonds(MoleculeDescriptor):
             for key, count in bag_counts(atoms.numbers).items():
                 if count > self.bag_sizes_[key]:
                     raise DescriptorError(
-                        f"{molecule_name(atoms, position)} has {count} entries in bag {key}; "
-                        f"this descriptor was fitted for at most {self.bag_sizes_[key]}; pass bag_sizes "
-                        "(for example the fitted bag_sizes_ of the whole data set) to fix them before fit"
+                        f"{molecule_name(atoms, position)} has {count} entries in bag {key}, more than the "
+                        f"{self.bag_sizes_[key]} this descriptor was fitted for: refit with molecules this large "
+                        "among the training molecules (in Python, bag_sizes fixes the bags before fit)"
                     )
 
     def _describe_one(self, atoms):

@@ -103,7 +103,7 @@ class FeatureStore:
         cached = self._load(folder, per_atom)
         keys = [molecule_key(atoms) for atoms in molecules]
         missing = sorted({key: i for i, key in enumerate(keys) if key not in cached}.values())
-        with tqdm(total=len(missing), unit="mol", desc=f"describe {type(descriptor).__name__}",
+        with tqdm(total=len(missing), unit="mol", desc="describe molecules",
                   disable=None if progress is None else not progress) as bar:
             for start in range(0, len(missing), chunk_size):
                 positions = missing[start : start + chunk_size]

@@ -99,6 +99,45 @@ def chosen_hyperparameters(model) -> dict:
     return chosen
 
 
+#: What a choice on each edge of the grid means, in plain words.
+EDGE_ADVICE = {
+    ("width", "low"): "the narrowest kernel width tried: training molecules barely inform one another, so expect "
+                      "large errors away from them; more training molecules or another descriptor usually help",
+    ("width", "high"): "the widest kernel width tried: the cross-validated error might still fall with wider "
+                       "kernels than the grid offers; the error above is what this model achieves",
+    ("regularization", "low"): "the smallest regularisation tried: the training energies are fitted almost "
+                               "exactly, as suits noise-free quantum-chemistry labels",
+    ("regularization", "high"): "the largest regularisation tried: the labels look noisy or the descriptor misses "
+                                "what drives them; check the energies' unit and outliers",
+}
+
+
+def fit_summary(model, unit: str = "kcal/mol") -> list[str]:
+    """Lines that say how good a cross-validated model is: its cross-validated MAE (in ``unit``
+    and eV), the width and regularisation it chose, and what a choice on a grid edge means.
+    Empty for models without a cross-validation (``cv_mae_``)."""
+    errors = getattr(model, "cv_mae_", None)
+    if errors is None or not hasattr(model, "width_"):
+        return []
+    scale = float(getattr(model, "width_unit_value_", 1.0))
+    widths = np.asarray(model.widths, float) * scale
+    regularizations = np.asarray(model.regularizations, float)
+    i_width = int(np.argmin(np.abs(widths - model.width_)))
+    i_reg = int(np.argmin(np.abs(np.log(regularizations) - np.log(model.regularization_))))
+    mae = float(errors[i_width, i_reg])
+    searched = len(getattr(model, "search_rows_", []))
+    lines = [f"cross-validated MAE ({getattr(model, 'cv', 5)}-fold, {searched} molecules): "
+             f"{convert_energy(mae, 'eV', unit):.3g} {unit} ({mae:.3g} eV)"]
+    in_medians = getattr(model, "width_unit", "absolute") == "median"
+    width = (f"{model.width_ / scale:g} x the median training distance ({model.width_:.4g} in descriptor units)"
+             if in_medians else f"{model.width_:g}")
+    lines.append(f"chosen kernel width {width}, regularisation {model.regularization_:g}")
+    for name, index, grid in (("width", i_width, widths), ("regularization", i_reg, regularizations)):
+        if len(grid) > 1 and index in (0, len(grid) - 1):
+            lines.append(f"note: {EDGE_ADVICE[name, 'low' if index == 0 else 'high']}")
+    return lines
+
+
 @dataclass
 class CurveRun:
     """A learning-curve run folder: settings, test set, and one file pair per finished point."""

@@ -139,8 +139,7 @@ def write_report(
         if target is not None:
             needed = fit.size_for(convert_energy(target, unit, "eV"))
             low, high = fit.size_range_for(convert_energy(target, unit, "eV"))
-            spread = f" (range {_size_text(low)} to {_size_text(high)})" if known_error else " (range unknown)"
-            row[f"N for {target:g} {unit}"] = _size_text(needed) + spread
+            row[f"N for {target:g} {unit}"] = _size_cell(needed, low, high, known_error)
         rows.append(row)
     plot_learning_curves(summary, fits, unit, target, folder / "learning_curve.png")
 
@@ -165,10 +164,21 @@ _LARGEST_SIZE_SHOWN = 1e9
 
 def _size_text(size: float) -> str:
     if math.isinf(size):
-        return "never (curve not falling)"
+        return "never"
     if size > _LARGEST_SIZE_SHOWN:
-        return "beyond 1e9 (curve nearly flat)"
+        return "more than 1e9"
     return f"{size:,.0f}"
+
+
+def _size_cell(needed: float, low: float, high: float, known_error: bool) -> str:
+    """The training size needed, its range, and what an unreachable size means, as one phrase:
+    '2,400 (range 1,900 to 3,100)', 'more than 1e9 (range 5,000,000 to never; the curve is nearly flat)'."""
+    notes = [f"range {_size_text(low)} to {_size_text(high)}" if known_error else "range unknown"]
+    if math.isinf(needed):
+        notes.append("the curve is not falling")
+    elif needed > _LARGEST_SIZE_SHOWN:
+        notes.append("the curve is nearly flat")
+    return f"{_size_text(needed)} ({'; '.join(notes)})"
 
 
 def _html_page(title, summary, extrapolation, settings, citation, unit, best_label, largest, n_test) -> str:

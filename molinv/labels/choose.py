@@ -19,6 +19,7 @@ Three strategies (:data:`STRATEGIES`):
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import scipy.linalg
 from sklearn.utils.validation import check_is_fitted
 
@@ -247,3 +248,56 @@ def choose_next(model, candidates, k: int, shortlist_factor: float = 4.0, labell
     else:
         order = pick_batch(std[usable], molecule_vectors(inputs, elements), k, shortlist_factor, known)
     return {"picked": usable[order], "predicted": predicted, "std": std, "reason": reasons}
+
+
+#: A candidate with more than this many times the non-hydrogen atoms of the largest training
+#: molecule is far outside: one label would not make the model fit for it, and it costs the
+#: most to compute (common practice, no source).
+FAR_SIZE_FACTOR = 1.5
+
+
+def far_larger(model, heavy_atoms: pd.Series) -> np.ndarray:
+    """Where the non-hydrogen atom counts exceed :data:`FAR_SIZE_FACTOR` times the training set's
+    largest (all False where the model keeps no training composition)."""
+    check = model.applicability_
+    if not len(check.count_elements_):
+        return np.zeros(len(heavy_atoms), dtype=bool)
+    largest = float(check.max_counts_[-1])  # the last count is the non-hydrogen total
+    return (heavy_atoms > FAR_SIZE_FACTOR * largest).to_numpy()
+
+
+def pick_table(model, molecules, rejected=(), k: int = 10, *, unit: str = "kcal/mol", target: str = "energy",
+               include_far: bool = False, **choose_options) -> pd.DataFrame:
+    """Every input row once, as :func:`molinv.screening.table.prediction_table` gives it (record, status,
+    reason, prediction, domain distance...), with ``pick_order`` (1..k for the picked, empty otherwise).
+
+    Picked are only rows that labelling can help: not 'failed' (unreadable, elements or a charge/spin
+    state the model cannot stand for), and, unless ``include_far``, not far larger than every training
+    molecule (:data:`FAR_SIZE_FACTOR`; their reason says so). Rows flagged for other reasons (unlike
+    the training molecules, chemistry it never showed) are those labels teach most, and may be picked.
+    Molecules need distinct ``info['record']`` numbers (reading sets them), which tie them to their
+    rows. ``choose_options`` go to :func:`choose_next`.
+    """
+    from molinv.screening.table import prediction_table
+
+    # On the model's geometry route, as the table predicts them (the table's call then finds them there).
+    molecules, _ = model.onto_route(list(molecules))
+    position = {atoms.info.get("record"): i for i, atoms in enumerate(molecules)}
+    if None in position or len(position) != len(molecules):
+        raise LabelError("pick needs a distinct info['record'] on every molecule (as reading sets it)")
+    table = prediction_table(model, molecules, rejected, unit=unit, target=target, rank=False)
+    molecule_of_row = table["record"].map(position)
+    heavy_atoms = molecule_of_row.map(lambda i: np.nan if pd.isna(i) else int(np.sum(molecules[int(i)].numbers > 1)))
+    far = far_larger(model, heavy_atoms) & (table["status"] != "failed").to_numpy()
+    if not include_far:
+        note = f"not picked: more than {FAR_SIZE_FACTOR:g} times the non-hydrogen atoms of any training molecule"
+        table.loc[far, "reason"] = [f"{r}; {note}" if r else note for r in table.loc[far, "reason"]]
+    eligible = np.flatnonzero((table["status"] != "failed").to_numpy() & (include_far | ~far))
+    if len(eligible) < k:
+        raise LabelError(f"only {len(eligible)} of {len(table)} candidates can be picked (the others failed"
+                         f"{'' if include_far else ' or are far larger than the training molecules'}); "
+                         f"cannot pick {k}")
+    choice = choose_next(model, [molecules[int(molecule_of_row.iloc[row])] for row in eligible], k, **choose_options)
+    table["pick_order"] = pd.array([pd.NA] * len(table), dtype="Int64")
+    table.loc[eligible[choice["picked"]], "pick_order"] = np.arange(1, k + 1)
+    return table

@@ -4,9 +4,13 @@ Both codes are optional (``pip install 'molinv[quantum]'``) and imported only wh
 a calculation runs. They work in Hartree and Bohr; every energy leaving this module
 is converted to eV, the internal unit, with the Hartree-valued number kept beside it.
 
-Only closed-shell molecules are computed (an odd electron count is refused with
-its reason). Free atoms for atomization energies are computed spin-polarised
-(unrestricted) in their ground-state multiplicity, with the same method and basis.
+Each molecule is computed at its charge and spin multiplicity (``info['charge']``,
+``info['multiplicity']``; see :mod:`molinv.molecules.electrons` for how they are read and
+defaulted): closed shells restricted (RHF/RKS), open shells unrestricted (UHF/UKS);
+tblite takes the charge and the number of unpaired electrons. Free atoms for atomization
+energies are computed spin-polarised (unrestricted) in their ground-state multiplicity,
+with the same method and basis; an ion gets no atomization energy (neutral atoms do not
+add up to it).
 
 PySCF names: 'B3LYPG' is B3LYP with the VWN3 (VWN-RPA) local correlation used by
 Gaussian, and therefore by QM9; PySCF's 'B3LYP5' uses VWN5 (see PySCF's
@@ -22,6 +26,8 @@ import numpy as np
 from ase import Atoms
 from ase.data import chemical_symbols
 
+from molinv.molecules.checks import MoleculeError
+from molinv.molecules.electrons import electronic_state
 from molinv.molecules.units import ENERGY_UNITS, LENGTH_UNITS
 
 KINDS = ("hf", "dft", "xtb")
@@ -69,6 +75,9 @@ class LabelMethod:
         PySCF cannot mix; measured here for B3LYPG/6-31G(2df,p) against QM9: methane
         U0 - ZPVE +0.36 kcal/mol spherical, -1.17 Cartesian; free O atom +2.5
         spherical, +0.35 Cartesian (C +1.14 / -0.57, N +0.62 spherical, H equal).
+    optimize : bool
+        Move each molecule to its GFN2-xTB minimum first (:func:`xtb_optimised`) and compute
+        the energy there; the name then reads 'METHOD//GFN2-xTB' (energy//geometry).
     """
 
     kind: str = "xtb"
@@ -78,6 +87,7 @@ class LabelMethod:
     max_cycles: int = 100
     convergence: float = 1e-9
     cartesian: bool = False
+    optimize: bool = False
 
     def __post_init__(self):
         if self.kind not in KINDS:
@@ -87,7 +97,11 @@ class LabelMethod:
 
     @property
     def name(self) -> str:
-        """A short label, e.g. 'DFT B3LYPG/6-31G(2df,p)', 'HF/STO-3G', 'GFN2-xTB'."""
+        """A short label, e.g. 'DFT B3LYPG/6-31G(2df,p)', 'HF/STO-3G', 'GFN2-xTB', 'HF/STO-3G//GFN2-xTB'."""
+        return self._energy_name + ("//GFN2-xTB" if self.optimize else "")
+
+    @property
+    def _energy_name(self) -> str:
         if self.kind == "xtb":
             return "GFN2-xTB"
         basis = f"{self.basis}{' (Cartesian)' if self.cartesian else ''}"
@@ -99,33 +113,58 @@ class LabelMethod:
         return asdict(self)
 
 
-def electron_count(numbers, charge: int = 0) -> int:
-    return int(np.sum(numbers)) - int(charge)
+def computed_state(atoms: Atoms) -> tuple[int, int]:
+    """(charge, multiplicity) the molecule is computed at; a LabelFailure when they cannot be."""
+    try:
+        return electronic_state(atoms)
+    except MoleculeError as error:
+        raise LabelFailure(str(error)) from None
 
 
-def check_closed_shell(atoms: Atoms) -> None:
-    electrons = electron_count(atoms.numbers)
-    if electrons % 2:
-        raise LabelFailure(f"odd number of electrons ({electrons}): open shell; only closed-shell molecules are computed")
+#: A GFN2-xTB optimisation has converged when no atom feels more than this force, eV/Angstrom,
+#: within this many BFGS steps (common practice, no source: xtb's own default level stops near
+#: 0.05 eV/Angstrom).
+XTB_MAX_FORCE = 0.02
+XTB_MAX_STEPS = 500
 
 
-def _pyscf_molecule(numbers, positions_angstrom, method: LabelMethod, spin: int):
+def xtb_optimised(atoms: Atoms) -> Atoms:
+    """A copy of the molecule at its GFN2-xTB minimum (tblite through ASE's BFGS) at its charge and
+    multiplicity; ``info['geometry_source']`` says so. Raises LabelFailure when it does not converge."""
+    from ase.optimize import BFGS
+    from tblite.ase import TBLite
+
+    charge, multiplicity = computed_state(atoms)
+    moved = atoms.copy()
+    moved.calc = TBLite(method="GFN2-xTB", charge=charge, multiplicity=multiplicity, verbosity=0)
+    try:
+        converged = BFGS(moved, logfile=None).run(fmax=XTB_MAX_FORCE, steps=XTB_MAX_STEPS)
+    except Exception as error:  # tblite raises its own error types for no convergence and bad input
+        raise LabelFailure(f"GFN2-xTB optimisation failed: {type(error).__name__}: {error}") from None
+    if not converged:
+        raise LabelFailure(f"GFN2-xTB optimisation did not reach {XTB_MAX_FORCE} eV/Angstrom in {XTB_MAX_STEPS} steps")
+    moved.calc = None
+    moved.info["geometry_source"] = f"GFN2-xTB optimised from {atoms.info.get('geometry_source', 'file')}"
+    return moved
+
+
+def _pyscf_molecule(numbers, positions_angstrom, method: LabelMethod, spin: int, charge: int = 0):
     from pyscf import gto
 
     symbols = [chemical_symbols[z] for z in numbers]
     try:
         return gto.M(atom=list(zip(symbols, map(tuple, positions_angstrom))), basis=method.basis, unit="Angstrom",
-                     charge=0, spin=spin, cart=method.cartesian, verbose=0)
+                     charge=charge, spin=spin, cart=method.cartesian, verbose=0)
     except Exception as error:  # PySCF reports missing basis functions with several exception types
         raise LabelFailure(f"PySCF cannot build the basis {method.basis!r} for {' '.join(sorted(set(symbols)))}: "
                            f"{type(error).__name__}: {error}") from None
 
 
-def _pyscf_energy(numbers, positions_angstrom, method: LabelMethod, spin: int) -> float:
-    """Total energy, Hartree; restricted for closed shells, unrestricted otherwise."""
+def _pyscf_energy(numbers, positions_angstrom, method: LabelMethod, spin: int, charge: int = 0) -> float:
+    """Total energy, Hartree; restricted for closed shells, unrestricted otherwise (``spin`` = 2S)."""
     from pyscf import dft, scf
 
-    molecule = _pyscf_molecule(numbers, positions_angstrom, method, spin)
+    molecule = _pyscf_molecule(numbers, positions_angstrom, method, spin, charge)
     open_shell = spin > 0
     if method.kind == "hf":
         solver = scf.UHF(molecule) if open_shell else scf.RHF(molecule)
@@ -144,7 +183,7 @@ def _pyscf_energy(numbers, positions_angstrom, method: LabelMethod, spin: int) -
     return float(energy)
 
 
-def _xtb_energy(numbers, positions_angstrom, unpaired: int) -> float:
+def _xtb_energy(numbers, positions_angstrom, unpaired: int, charge: int = 0) -> float:
     """GFN2-xTB total energy, Hartree (tblite takes Bohr)."""
     from tblite.interface import Calculator
 
@@ -153,7 +192,7 @@ def _xtb_energy(numbers, positions_angstrom, unpaired: int) -> float:
         raise LabelFailure(f"unsupported element for GFN2-xTB (Z 1-{XTB_MAX_Z}): {', '.join(too_heavy)}")
     positions_bohr = np.asarray(positions_angstrom, float) / LENGTH_UNITS["Bohr"]
     try:
-        calculator = Calculator("GFN2-xTB", np.asarray(numbers), positions_bohr, charge=0.0, uhf=unpaired)
+        calculator = Calculator("GFN2-xTB", np.asarray(numbers), positions_bohr, charge=float(charge), uhf=unpaired)
         calculator.set("verbosity", 0)
         return float(calculator.singlepoint().get("energy"))
     except Exception as error:  # tblite raises its own error types for no convergence and bad input
@@ -161,11 +200,11 @@ def _xtb_energy(numbers, positions_angstrom, unpaired: int) -> float:
 
 
 def total_energy_hartree(atoms: Atoms, method: LabelMethod) -> float:
-    """Total electronic energy of a closed-shell molecule, Hartree (no zero-point energy)."""
-    check_closed_shell(atoms)
+    """Total electronic energy at the molecule's charge and multiplicity, Hartree (no zero-point energy)."""
+    charge, multiplicity = computed_state(atoms)
     if method.kind == "xtb":
-        return _xtb_energy(atoms.numbers, atoms.positions, 0)
-    return _pyscf_energy(atoms.numbers, atoms.positions, method, 0)
+        return _xtb_energy(atoms.numbers, atoms.positions, multiplicity - 1, charge)
+    return _pyscf_energy(atoms.numbers, atoms.positions, method, multiplicity - 1, charge)
 
 
 @lru_cache(maxsize=None)
@@ -181,6 +220,10 @@ def atom_energy_hartree(symbol: str, method: LabelMethod) -> float:
 
 
 def atomization_energy_ev(atoms: Atoms, total_hartree: float, method: LabelMethod) -> float:
-    """Sum of free-atom energies minus the molecule's, eV (positive for a bound molecule)."""
+    """Sum of free-atom energies minus the molecule's, eV (positive for a bound molecule); refused for ions."""
+    charge, _ = computed_state(atoms)
+    if charge:
+        raise LabelFailure(f"no atomization energy for an ion (charge {charge:+d}): free neutral atoms do not add "
+                           "up to it; the total energy is given")
     atoms_hartree = sum(atom_energy_hartree(symbol, method) for symbol in atoms.get_chemical_symbols())
     return (atoms_hartree - total_hartree) * ENERGY_UNITS["Hartree"]

@@ -185,11 +185,15 @@ def width_unit_value(width_unit: str, features, kernel, random_state: int) -> fl
 
 
 def fit_scaling(values: np.ndarray, scale: bool) -> tuple[np.ndarray, np.ndarray]:
-    """Per-feature mean and standard deviation (1 where constant); identity when ``scale`` is false."""
+    """Per-feature mean and standard deviation (1 where constant); identity when ``scale`` is false.
+
+    A column counts as constant when its spread is below 1e-10 of its largest magnitude:
+    the standard deviation of identical values comes out at rounding level (1e-13 for
+    36.858, measured), and dividing by it would blow up any other value in that column."""
     if not scale:
         return np.zeros(values.shape[1]), np.ones(values.shape[1])
     spread = values.std(axis=0)
-    return values.mean(axis=0), np.where(spread > 0, spread, 1.0)
+    return values.mean(axis=0), np.where(spread > 1e-10 * np.abs(values).max(axis=0, initial=0.0), spread, 1.0)
 
 
 class _KernelRidgeBase(BaselineMixin, RegressorMixin, BaseEstimator):
@@ -401,7 +405,7 @@ class _GridSearch:
             residuals.append((y[train] - predict_baseline(state, X[train]), y[validation] - predict_baseline(state, X[validation])))
         errors = np.zeros((len(folds), len(widths), len(regularizations)))
         blocks = self._fold_kernels(X, kernel, folds, widths, shared)
-        bar = tqdm(blocks, total=len(folds) * len(widths), desc=type(self).__name__, unit="fold x width",
+        bar = tqdm(blocks, total=len(folds) * len(widths), desc="cross-validation", unit="fold x width",
                    disable=None if self.progress is None else not self.progress)
         for i_fold, i_width, kernel_train, kernel_val in bar:
             y_train, y_val = residuals[i_fold]

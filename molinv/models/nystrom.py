@@ -240,7 +240,7 @@ class NystromRidge(BaselineMixin, RegressorMixin, BaseEstimator):
 
     def _chunks(self, n: int):
         starts = range(0, n, int(self.chunk_size))
-        bar = dict(desc=type(self).__name__, unit="chunk", disable=None if self.progress is None else not self.progress)
+        bar = dict(desc="kernel ridge (landmarks)", unit="chunk", disable=None if self.progress is None else not self.progress)
         for start in tqdm(starts, **bar):
             yield np.arange(start, min(start + int(self.chunk_size), n))
 

@@ -31,7 +31,9 @@ from rdkit import Chem
 from tqdm.auto import tqdm
 
 from .checks import MoleculeError, Rejected, check_geometry, shorten
-from .embedding import EMBED_SEED, atoms_from_rdkit, embed_smiles, rdkit_messages, rdkit_reason
+from .electrons import merge_stated, settle_electronic_state
+from .embedding import (EMBED_SEED, atoms_from_rdkit, charge_and_multiplicity, embed_smiles, rdkit_messages,
+                        rdkit_reason)
 from .units import ENERGY_UNITS, LENGTH_UNITS, energy_unit, length_unit
 
 FORMATS_BY_SUFFIX = {
@@ -274,6 +276,7 @@ def _finish(atoms: Atoms, units: UnitsDeclared, name: str, source: str) -> None:
     atoms.info.setdefault("name", name)
     atoms.info["name"] = str(atoms.info["name"])
     atoms.info["source"] = source
+    settle_electronic_state(atoms)
     check_geometry(atoms)
 
 
@@ -518,9 +521,12 @@ def _sdf_builder(lines: list[TextLine]):
         if not mol.GetConformer().Is3D():
             raise MoleculeError("record has 2D coordinates only; give 3D coordinates or a SMILES to embed")
         atoms = atoms_from_rdkit(mol)
+        atoms.info.update(charge_and_multiplicity(mol))
+        properties = {}
         for key, value in mol.GetPropsAsDict(includePrivate=False).items():
             number = _as_number(value)
-            atoms.info[key] = number if number is not None else value
+            properties[key] = number if number is not None else value
+        merge_stated(atoms, properties)
         title = mol.GetProp("_Name").strip() if mol.HasProp("_Name") else ""
         if title and "name" not in atoms.info:
             atoms.info["name"] = title
@@ -559,7 +565,7 @@ class SmilesBuilder:
             raise MoleculeError(f"SMILES of {len(self.smiles)} characters, more than the {MAX_SMILES_CHARACTERS} "
                                 "of the largest molecule molinv embeds")
         atoms = embed_smiles(self.smiles, seed=self.seed)
-        atoms.info.update(self.properties)
+        merge_stated(atoms, self.properties)
         return atoms
 
 

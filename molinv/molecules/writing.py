@@ -97,14 +97,16 @@ def _bonded_from_xyz(xyz_block: str, smiles: str | None, charge: int) -> Chem.Mo
                 return mol
             except (ValueError, RuntimeError, Chem.rdchem.MolSanitizeException):
                 continue
-    perceived = Chem.Mol(connected)
-    try:
-        rdDetermineBonds.DetermineBondOrders(perceived, charge=charge)
-        Chem.SanitizeMol(perceived)
-        return perceived
-    except (ValueError, RuntimeError, Chem.rdchem.MolSanitizeException):
-        # Bond orders cannot always be assigned (radicals, odd charge states); connectivity still can.
-        return connected
+    for candidate in (connected, _without_overlong_contacts(connected)):
+        perceived = Chem.Mol(candidate)
+        try:
+            rdDetermineBonds.DetermineBondOrders(perceived, charge=charge)
+            Chem.SanitizeMol(perceived)
+            return perceived
+        except (ValueError, RuntimeError, Chem.rdchem.MolSanitizeException):
+            continue
+    # Bond orders cannot always be assigned (radicals, odd charge states); connectivity still can.
+    return connected
 
 
 def _without_overlong_contacts(mol: Chem.Mol) -> Chem.Mol:
@@ -125,7 +127,8 @@ def _without_overlong_contacts(mol: Chem.Mol) -> Chem.Mol:
 
 
 def bonded_molecule(atoms: Atoms) -> Chem.Mol:
-    """RDKit molecule of the atoms (Angstrom) with bonds: from its SMILES when known, else perceived."""
+    """RDKit molecule of ``atoms`` with bonds and its coordinates (Angstrom): bond orders from
+    ``info['smiles']`` when known, else perceived from the geometry at ``info['charge']``."""
     lines = [str(len(atoms)), ""]
     lines += [f"{s} {x:.10f} {y:.10f} {z:.10f}" for s, (x, y, z) in zip(atoms.get_chemical_symbols(), atoms.positions)]
     return _bonded_from_xyz("\n".join(lines) + "\n", atoms.info.get("smiles"), int(atoms.info.get("charge", 0)))

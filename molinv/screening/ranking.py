@@ -1,12 +1,18 @@
 """Ranking a prediction table by stability, in memory or streamed from chunk files.
 
 The rules (:func:`finish_ranking`): a name already used by an earlier row is
-flagged, with a note naming the first record that used it; the per-atom value
-is added; ``relative_to_best_isomer_<unit>`` is the difference to the most
-stable non-failed candidate of the same formula (never negative); non-failed
-rows are ranked from the most stable (largest atomization energy, smallest total
-energy), equal values in row order; rows without a prediction have no rank and
-come last, by record.
+flagged, with a note naming the first record that used it. For an energy that
+measures stability (:data:`STABILITY_TARGETS`: atomization energy, total energies)
+candidates are compared with their isomers only, because energies of different
+formulas are not comparable (a 30-carbon alkane has a larger atomization energy than
+any isomer of C3H8O, and is no more stable for it): the per-atom value is added;
+``relative_to_best_isomer_<unit>`` is the difference to the most stable non-failed
+candidate of the same formula (never negative); non-failed rows are grouped by formula
+(in text order) and ranked within it from the most stable (largest atomization energy,
+smallest total energy), ``rank_in_formula`` 1 being the best isomer, equal values in row
+order. Rows without a prediction have no rank and come last, by record. For any other
+target (a HOMO-LUMO gap, say) there is no stability order: no per-atom, relative or
+rank columns, rows by record.
 
 A screen's table can be longer than memory allows, so :func:`write_ranking`
 applies the same rules in three passes over its chunk files, holding one run of
@@ -24,7 +30,9 @@ from __future__ import annotations
 import csv
 import heapq
 import os
+import re
 import tempfile
+from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterable, Iterator
@@ -34,14 +42,17 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from molinv.cluster.chunks import iter_tables
-
 from molinv.outputs import written_atomically
 
 from .spreadsheet import TEXT_COLUMNS, neutralised, restored
 
 #: Sort key of a finished row, written before its fields in a run file: unranked (0 or 1),
 #: missing order value (0 or 1), order value, position of the row in the whole table.
-KEY_COLUMNS = ["unranked", "missing", "order", "position"]
+KEY_COLUMNS = ["unranked", "missing", "formula", "order", "position"]
+#: Targets whose value orders isomers by stability, and whether larger is stabler.
+STABILITY_TARGETS = {"atomization_energy": True, "energy": False, "U0": False, "U": False, "H": False, "G": False}
+#: The rank column of a table of a stability target.
+RANK_COLUMN = "rank_in_formula"
 
 
 @dataclass
@@ -66,7 +77,12 @@ class RankingBook:
 
     @property
     def larger_is_stabler(self) -> bool:
-        return self.target == "atomization_energy"
+        return STABILITY_TARGETS.get(self.target, False)
+
+    @property
+    def ranks(self) -> bool:
+        """Whether the target orders isomers by stability (else no rank and no energy columns)."""
+        return self.target in STABILITY_TARGETS
 
     def add(self, table: pd.DataFrame) -> np.ndarray:
         """Take note of the types and best values of one chunk; returns its names' hashes."""
@@ -78,7 +94,8 @@ class RankingBook:
             empty = pd.DataFrame({name: pd.Series([], dtype=dtype) for name, dtype in self.dtypes.items()})
             self.dtypes = pd.concat([empty, table.iloc[:0]], ignore_index=True).dtypes
         extreme = "max" if self.larger_is_stabler else "min"
-        for formula, value in predicted(table, self.value_column).groupby(table["formula"]).agg(extreme).items():
+        values = predicted(table, self.value_column) if self.ranks else pd.Series(dtype=float)
+        for formula, value in values.groupby(table["formula"]).agg(extreme).items():
             known = self.best.get(formula, np.nan)
             self.best[formula] = np.fmax(known, value) if self.larger_is_stabler else np.fmin(known, value)
         self.rows += len(table)
@@ -130,6 +147,28 @@ def predicted(table: pd.DataFrame, value_column: str) -> pd.Series:
     return table[value_column].where(table["status"] != "failed")
 
 
+#: Columns that count things: written as whole numbers, empty where missing.
+WHOLE_NUMBER_COLUMNS = ("record", "n_atoms", "charge", "multiplicity", RANK_COLUMN)
+
+
+def whole_numbers(table: pd.DataFrame) -> pd.DataFrame:
+    """The table with its counting columns as nullable integers (CSV '3', not '3.0')."""
+    present = [column for column in WHOLE_NUMBER_COLUMNS if column in table.columns]
+    return table.astype({column: "Int64" for column in present})
+
+
+def reason_kinds(reasons: pd.Series) -> Counter:
+    """How often each kind of reason occurs: every '; '-separated part, without its parenthesised
+    detail, names and numbers ('unlike the training molecules', "molecule '…' has N atoms, ...")."""
+    kinds = Counter()
+    for text in reason_text(reasons):
+        for part in filter(None, text.split("; ")):
+            # Charges stay ('charge -1 singlet'): a few distinct values, each telling.
+            kind = re.sub(r"(?<!charge )(?<![-+\d])[-+]?\d+(\.\d+)?", "N", re.sub(r"'[^']*'", "'…'", part.split(" (")[0]))
+            kinds[kind.strip()] += 1
+    return kinds
+
+
 def reason_text(reasons: pd.Series) -> pd.Series:
     # Read back from chunk files, a column of empty reasons is all NaN (float): make it text first.
     return reasons.fillna("").astype(str)
@@ -138,7 +177,7 @@ def reason_text(reasons: pd.Series) -> pd.Series:
 def finish_rows(table: pd.DataFrame, book: RankingBook, number: int, start: int) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Second pass on chunk ``number``, whose first row is row ``start`` of the whole table:
     the finished rows (all columns but the rank) and their sort keys (:data:`KEY_COLUMNS`)."""
-    table = table.astype(book.dtypes)
+    table = whole_numbers(table.astype(book.dtypes))
     names = table["name"]
     uses = [book.first_use[name] if may else (number, np.nan) for name, may in zip(names, book.may_repeat(names))]
     earlier_chunk = np.array([use[0] < number for use in uses], dtype=bool)
@@ -149,34 +188,49 @@ def finish_rows(table: pd.DataFrame, book: RankingBook, number: int, start: int)
     note = "name also used by record " + first_record.astype("Int64").astype(str)
     table["reason"] = reasons.where(~repeated, reasons.where(reasons == "", reasons + "; ") + note)
     value_column, unit = book.value_column, book.unit
+    if not book.ranks:
+        return table, sort_keys(pd.Series(np.nan, index=table.index), table["record"], table["formula"], start, False)
     table[f"{book.target}_per_atom_{unit}"] = table[value_column] / table["n_atoms"]
     values = predicted(table, value_column)
     best = table["formula"].map(book.best).astype(float)
     table[f"relative_to_best_isomer_{unit}"] = (best - values) if book.larger_is_stabler else (values - best)
-    return table, sort_keys(values, table["record"], start, book.larger_is_stabler)
+    return table, sort_keys(values, table["record"], table["formula"], start, book.larger_is_stabler)
 
 
-def sort_keys(values: pd.Series, records: pd.Series, start: int, larger_is_stabler: bool) -> pd.DataFrame:
-    """Ranked rows by value (most stable first), equal values in row order; then the
-    unranked rows by record, missing records last, equal records in row order."""
+def sort_keys(values: pd.Series, records: pd.Series, formulas: pd.Series, start: int,
+              larger_is_stabler: bool) -> pd.DataFrame:
+    """Ranked rows by formula, then by value (most stable first), equal values in row order;
+    then the unranked rows by record, missing records last, equal records in row order."""
     unranked = values.isna().to_numpy()
-    records = records.to_numpy(dtype=float)
+    records = records.to_numpy(dtype=float, na_value=np.nan)
     stability = -values.to_numpy() if larger_is_stabler else values.to_numpy()
     order = np.where(unranked, records, stability)
     return pd.DataFrame({"unranked": unranked.astype(np.int8),
                          "missing": (unranked & np.isnan(records)).astype(np.int8),
+                         "formula": np.where(unranked, "", formulas.fillna("").astype(str).to_numpy()),
                          "order": np.nan_to_num(order, nan=0.0),
                          "position": np.arange(start, start + len(values), dtype=np.int64)})
 
 
 def sorted_rows(table: pd.DataFrame, keys: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
-    order = np.lexsort([keys[column].to_numpy() for column in reversed(KEY_COLUMNS)])
+    # Formulas as fixed-width text: numpy sorts those by code point, as the merge compares str.
+    order = np.lexsort([keys[column].to_numpy(dtype=str if column == "formula" else None)
+                        for column in reversed(KEY_COLUMNS)])
     return table.iloc[order].reset_index(drop=True), keys.iloc[order].reset_index(drop=True)
 
 
-def ranks(unranked: np.ndarray) -> np.ndarray:
-    """Ranks 1, 2, ... of sorted rows; NaN for the unranked ones (which come last)."""
-    return np.where(unranked, np.nan, np.arange(1, len(unranked) + 1, dtype=float))
+def ranking_note(target: str) -> str:
+    """How a table of ``target`` is ordered, in words, for its summary."""
+    if target in STABILITY_TARGETS:
+        return (f"ranked within each formula: {RANK_COLUMN} 1 is the most stable predicted isomer, "
+                "relative_to_best_isomer the energy above it (energies of different formulas are not compared)")
+    return f"not ranked: {target} does not order molecules by stability; rows in input order"
+
+
+def ranks(keys: pd.DataFrame) -> np.ndarray:
+    """Ranks 1, 2, ... within each formula of sorted rows; NaN for the unranked ones (which come last)."""
+    within = keys.groupby("formula", sort=False).cumcount().to_numpy() + 1.0
+    return np.where(keys["unranked"].to_numpy(dtype=bool), np.nan, within)
 
 
 def finish_ranking(table: pd.DataFrame, unit: str, target: str) -> pd.DataFrame:
@@ -191,18 +245,22 @@ def finish_ranking(table: pd.DataFrame, unit: str, target: str) -> pd.DataFrame:
         return table
     book = read_book(lambda: [table], unit, target)
     finished, keys = sorted_rows(*finish_rows(table, book, 0, 0))
-    finished["rank"] = ranks(keys["unranked"].to_numpy(dtype=bool))
+    if book.ranks:
+        finished[RANK_COLUMN] = pd.array(ranks(keys), dtype="Int64")
     return finished
 
 
 @dataclass
 class RankedFiles:
     """What :func:`write_ranking` wrote: the number of rows, rows per status, and the
-    first ``top`` rows with status ``ok`` in ranked order (all columns)."""
+    first ``top`` rows with status ``ok`` in ranked order (all columns; for a stability
+    target only each formula's most stable isomer)."""
 
     rows: int
     counts: dict[str, int]
     top: pd.DataFrame
+    #: Kinds of reason of the rows not 'ok', with their counts (:func:`reason_kinds`).
+    reasons: Counter = field(default_factory=Counter)
 
 
 def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None, top: int = 10,
@@ -231,20 +289,23 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
             pd.DataFrame().to_csv(temporary, index=False)
         return RankedFiles(0, {}, pd.DataFrame())
     with tempfile.TemporaryDirectory(dir=csv_path.parent, prefix=".ranking-") as scratch:
-        runs = RunWriter(Path(scratch), run_rows, top)
+        runs = RunWriter(Path(scratch), run_rows, top, f"relative_to_best_isomer_{unit}" if book.ranks else None)
         start = 0
         for number, table in enumerate(tables("rank: sort")):
             runs.add(*finish_rows(table, book, number, start))
             start += len(table)
         runs.flush()
-        columns = list(runs.dtypes.index) + ["rank"]
+        columns = list(runs.dtypes.index) + ([RANK_COLUMN] if book.ranks else [])
         leaders = set(runs.leader_keys["position"].tolist())
         with written_atomically(csv_path) as temporary:
-            ranks_of = merge_runs(merge_into_runs(runs.paths, fan_in), temporary, columns, leaders)
-    best = runs.leaders.assign(rank=[ranks_of[p] for p in runs.leader_keys["position"].tolist()])
+            ranks_of = merge_runs(merge_into_runs(runs.paths, fan_in), temporary, columns, leaders, book.ranks)
+    best = runs.leaders
+    if book.ranks:
+        best = best.assign(**{RANK_COLUMN: pd.array([ranks_of[p] for p in runs.leader_keys["position"].tolist()],
+                                                    dtype="Int64")})
     if parquet_path is not None:
-        write_parquet(csv_path, parquet_path, runs.dtypes, run_rows)
-    return RankedFiles(book.rows, runs.counts, best)
+        write_parquet(csv_path, parquet_path, runs.dtypes, run_rows, book.ranks)
+    return RankedFiles(book.rows, runs.counts, best, runs.reasons)
 
 
 class RunWriter:
@@ -252,11 +313,14 @@ class RunWriter:
     written sorted to a CSV file with its sort keys first; keeps the status counts and
     the ``top`` most stable rows with status ``ok``."""
 
-    def __init__(self, folder: Path, run_rows: int, top: int):
+    def __init__(self, folder: Path, run_rows: int, top: int, relative_column: str | None = None):
         self.folder, self.run_rows, self.top = folder, run_rows, top
+        #: With it, the leaders are only rows that are their formula's most stable isomer.
+        self.relative_column = relative_column
         self.pending: list[tuple[pd.DataFrame, pd.DataFrame]] = []
         self.paths: list[Path] = []
         self.counts: dict[str, int] = {}
+        self.reasons = Counter()
         self.leaders = self.leader_keys = self.dtypes = None
 
     def add(self, rows: pd.DataFrame, keys: pd.DataFrame) -> None:
@@ -264,6 +328,9 @@ class RunWriter:
         for status, count in rows["status"].value_counts().items():
             self.counts[status] = self.counts.get(status, 0) + int(count)
         ok = (rows["status"] == "ok").to_numpy()
+        self.reasons.update(reason_kinds(rows.loc[~ok, "reason"]))
+        if self.relative_column is not None:
+            ok = ok & (rows[self.relative_column] == 0).to_numpy()
         leaders = [(rows[ok], keys[ok])] + ([] if self.leaders is None else [(self.leaders, self.leader_keys)])
         leaders, keys_of_leaders = sorted_rows(*(pd.concat(part, ignore_index=True) for part in zip(*leaders)))
         self.leaders, self.leader_keys = leaders.head(self.top), keys_of_leaders.head(self.top)
@@ -285,7 +352,7 @@ def run_records(path: Path) -> Iterator[tuple[tuple, list[str]]]:
     """(sort key, fields as written, the key's first) of each row of a run file, in order."""
     with open(path, newline="") as handle:
         for fields in csv.reader(handle):
-            yield (int(fields[0]), int(fields[1]), float(fields[2]), int(fields[3])), fields
+            yield (int(fields[0]), int(fields[1]), fields[2], float(fields[3]), int(fields[4])), fields
 
 
 def merged_records(paths: list[Path]) -> Iterator[tuple[tuple, list[str]]]:
@@ -309,34 +376,38 @@ def merge_into_runs(paths: list[Path], fan_in: int) -> list[Path]:
     return paths
 
 
-def merge_runs(paths: list[Path], csv_path: Path, columns: list[str], wanted: set[int]) -> dict[int, float]:
+def merge_runs(paths: list[Path], csv_path: Path, columns: list[str], wanted: set[int],
+               with_ranks: bool = True) -> dict[int, int]:
     """Third pass: merge sorted runs into one CSV file (written as pandas writes one), numbering
-    the ranks on the way; returns the rank of each row whose position is in ``wanted``."""
-    found, rank = {}, 0
+    the ranks within each formula on the way (``with_ranks``); returns the rank of each row whose
+    position is in ``wanted``."""
+    found, rank, group = {}, 0, None
     with open(csv_path, "w", newline="") as handle:
         # pandas writes CSV with the csv module's default dialect and the platform's line end.
         writer = csv.writer(handle, lineterminator=os.linesep)
         writer.writerow(columns)
         text_columns = [columns.index(c) for c in TEXT_COLUMNS if c in columns]
-        for (unranked, _, _, position), fields in merged_records(paths):
-            rank += not unranked
-            text = "" if unranked else str(np.float64(rank))
+        for (unranked, _, formula, _, position), fields in merged_records(paths):
+            rank = 1 if formula != group else rank + 1
+            group = formula
+            text = "" if unranked else str(rank)
             if position in wanted:
-                found[position] = np.nan if unranked else float(rank)
+                found[position] = pd.NA if unranked else rank
             row = fields[len(KEY_COLUMNS):]
             for column in text_columns:
                 row[column] = neutralised(row[column])
-            writer.writerow(row + [text])
+            writer.writerow(row + ([text] if with_ranks else []))
     return found
 
 
-def write_parquet(csv_path: Path, parquet_path, dtypes: pd.Series, batch_rows: int) -> None:
+def write_parquet(csv_path: Path, parquet_path, dtypes: pd.Series, batch_rows: int, with_ranks: bool = True) -> None:
     """The ranked CSV file as Parquet, one row group per ``batch_rows`` rows; every column as
     typed in the table (text read as text, so that names like '007' stay as they are)."""
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    dtypes = pd.concat([dtypes, pd.Series({"rank": np.dtype(float)})])
+    if with_ranks:
+        dtypes = pd.concat([dtypes, pd.Series({RANK_COLUMN: pd.Int64Dtype()})])
     text = {name: str for name, dtype in dtypes.items() if not pd.api.types.is_numeric_dtype(dtype)}
     writer = None
     with written_atomically(parquet_path) as temporary:

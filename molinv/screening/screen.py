@@ -14,6 +14,8 @@ Memory holds a few chunks at a time.
 
 from __future__ import annotations
 
+import html
+from collections import Counter
 from dataclasses import dataclass, field
 from functools import partial
 from pathlib import Path
@@ -28,8 +30,11 @@ from molinv.molecules.reading import iter_records
 from molinv.molecules.route import describe_route
 from molinv.outputs import written_atomically
 
-from .ranking import write_ranking
+from .ranking import RANK_COLUMN, ranking_note, write_ranking
 from .table import CAUTION, prediction_table
+
+#: Kinds of reason listed in a screen's summary.
+SHOWN_REASON_KINDS = 8
 
 
 class ScreenError(ValueError):
@@ -44,18 +49,51 @@ class ScreenSummary:
     failed: int
     table_path: Path
     top: pd.DataFrame
-    #: How the model's training geometries were made, in words (see molinv.molecules.route).
-    route: str = ""
+    #: How the table is ordered (:func:`~molinv.screening.ranking.ranking_note`).
+    ranking: str
+    #: Kinds of reason of the rows not 'ok', with their counts.
+    reasons: Counter
+    #: The model's geometry route, in words.
+    route: str
     #: Chunks computed by this call (finished ones from an earlier run are skipped).
     computed: list[ChunkReport] = field(default_factory=list)
 
     def text(self, unit: str) -> str:
         lines = [f"{self.rows} candidates: {self.ok} ok, {self.flagged} flagged, {self.failed} failed",
                  f"model's geometry route: {self.route}",
-                 f"ranked table: {self.table_path}", "most stable predicted (ok rows):"]
-        lines += ["  " + line for line in self.top.to_string(index=False, float_format=lambda v: f"{v:.2f}").splitlines()]
+                 f"table: {self.table_path}, {self.ranking}"]
+        if RANK_COLUMN in self.top.columns:
+            lines.append("most stable predicted isomer of each formula (ok rows, formulas in text order):")
+        else:
+            lines.append("first ok rows:")
+        if self.top.empty:
+            lines.append("  none")
+        else:
+            lines += ["  " + line for line in self.top.to_string(index=False, float_format=lambda v: f"{v:.2f}").splitlines()]
+        if self.reasons:
+            lines.append("most frequent reasons to flag or fail (rows):")
+            lines += [f"  {count:>7}  {kind}" for kind, count in self.reasons.most_common(SHOWN_REASON_KINDS)]
         lines.append(f"Caution: {CAUTION}")
         return "\n".join(lines)
+
+    def html(self, title: str) -> str:
+        """The same as a page of its own (what a browser or a colleague opens)."""
+        reasons = "".join(f"<tr><td>{count}</td><td>{html.escape(kind)}</td></tr>"
+                          for kind, count in self.reasons.most_common(SHOWN_REASON_KINDS))
+        top = self.top.to_html(index=False, float_format=lambda v: f"{v:.2f}", na_rep="")
+        return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8"><title>{html.escape(title)}</title></head><body>
+<h1>{html.escape(title)}</h1>
+<p>{self.rows} candidates: {self.ok} ok, {self.flagged} flagged, {self.failed} failed. Table:
+<a href="{html.escape(self.table_path.name)}">{html.escape(self.table_path.name)}</a>, {html.escape(self.ranking)}.</p>
+<h2>{'Most stable predicted isomer of each formula' if RANK_COLUMN in self.top.columns else 'First ok rows'}</h2>
+{top}
+<h2>Most frequent reasons to flag or fail</h2>
+<table><tr><th>rows</th><th>reason</th></tr>{reasons}</table>
+<p>Model's geometry route: {html.escape(self.route)}.</p>
+<p><strong>Caution:</strong> {html.escape(CAUTION)}</p>
+</body></html>
+"""
 
 
 def predict_chunk(chunk: MoleculeChunk, model, *, unit: str, target: str) -> pd.DataFrame:
@@ -109,10 +147,14 @@ def screen_file(model, path, out, *, model_fingerprint: str, target: str = "ener
     table_path = out / "ranked.csv"
     ranked = write_ranking(out / "chunks", table_path, unit=unit, target=target, top=top, progress=progress,
                            parquet_path=out / "ranked.parquet" if parquet else None)
-    best = ranked.top.reindex(columns=["rank", "name", "formula", f"{target}_{unit}", f"std_{unit}"])
+    shown = [RANK_COLUMN, "name", "formula", f"{target}_{unit}", f"std_{unit}"]
+    best = ranked.top.reindex(columns=[c for c in shown if c in ranked.top.columns])
     counts = ranked.counts
     summary = ScreenSummary(ranked.rows, counts.get("ok", 0), counts.get("flagged", 0), counts.get("failed", 0),
-                            table_path, best, describe_route(model.route_), computed)
+                            table_path, best, ranking_note(target), ranked.reasons, describe_route(model.route_),
+                            computed)
     with written_atomically(out / "summary.txt") as temporary:
         temporary.write_text(summary.text(unit) + "\n")
+    with written_atomically(out / "summary.html") as temporary:
+        temporary.write_text(summary.html(f"molinv screen of {Path(label).name}"))
     return summary

@@ -1,9 +1,11 @@
 """Predictions for candidate molecules as one table: every input row once, with a status.
 
 Statuses: ``ok``; ``flagged`` (predicted, but the reason says why to distrust
-it: far from every training molecule, or a name already used by an earlier
-row); ``failed`` (not predicted: unreadable record, or an element the model was
-not trained on). Candidates are first brought onto the model's geometry route
+it: far from every training molecule, chemistry no training molecule showed (see
+:mod:`molinv.screening.coverage`), or a name already used by an earlier row);
+``failed`` (not predicted: unreadable record, an element the model was not trained
+on, or a charge/spin state it was not trained on: no descriptor here sees charge or
+spin, so the number would belong to another species). Candidates are first brought onto the model's geometry route
 (:meth:`~molinv.recipes.EnergyModel.onto_route`): a model trained on geometries made
 from SMILES embeds candidates given with coordinates anew from their SMILES, and a
 model trained on coordinates from files flags candidates embedded from SMILES.
@@ -21,16 +23,18 @@ from ase.data import chemical_symbols
 
 from molinv.descriptors.base import DescriptorError
 from molinv.molecules.checks import MoleculeError, Rejected, check_geometry, shorten
+from molinv.molecules.electrons import electronic_state
 from molinv.molecules.units import convert_energy
 
-from .ranking import finish_ranking
+from .ranking import finish_ranking, whole_numbers
 
 CAUTION = (
     "Predictions are statistical estimates, not a substitute for validated quantum-chemical calculations, "
     "local regulations or expert review."
 )
 
-COLUMNS = ["record", "name", "smiles", "formula", "n_atoms", "geometry_source", "status", "reason"]
+COLUMNS = ["record", "name", "smiles", "formula", "n_atoms", "charge", "multiplicity", "geometry_source", "status",
+           "reason"]
 
 
 def describable(descriptor, atoms: Atoms) -> str:
@@ -45,6 +49,16 @@ def describable(descriptor, atoms: Atoms) -> str:
         # The message counts positions within the one-molecule list checked here; drop that.
         return re.sub(r" \(position 0\)| at position 0", "", str(error))
     return ""
+
+
+def stated_state(atoms: Atoms) -> dict:
+    """The molecule's charge and multiplicity as table cells (empty where they cannot describe
+    its electrons: the refusal says why)."""
+    try:
+        charge, multiplicity = electronic_state(atoms)
+    except MoleculeError:
+        return {"charge": np.nan, "multiplicity": np.nan}
+    return {"charge": charge, "multiplicity": multiplicity}
 
 
 def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejected] = (), unit: str = "kcal/mol",
@@ -63,8 +77,9 @@ def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejec
     for atoms, route_note in zip(molecules, route_notes):
         row = {"record": atoms.info.get("record"), "name": atoms.info.get("name"),
                "smiles": atoms.info.get("smiles", ""), "formula": atoms.get_chemical_formula(), "n_atoms": len(atoms),
-               "geometry_source": atoms.info.get("geometry_source", "file"), "status": "ok", "reason": ""}
-        refusal = describable(model.descriptor_, atoms)
+               **stated_state(atoms), "geometry_source": atoms.info.get("geometry_source", "file"), "status": "ok",
+               "reason": ""}
+        refusal = describable(model.descriptor_, atoms) or model.chemistry_.refusal(atoms)
         if route_note and route_note[0] == "failed":
             row.update(status="failed", reason=route_note[1])
         elif refusal:
@@ -74,8 +89,8 @@ def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejec
                 route_flags[len(rows)] = route_note[1]
             usable.append(len(rows))
         rows.append(row)
-    rows += [{"record": r.record, "name": r.name, "smiles": "", "formula": "", "n_atoms": np.nan,
-              "geometry_source": "", "status": "failed", "reason": r.reason} for r in rejected]
+    rows += [{"record": r.record, "name": r.name, "smiles": "", "formula": "", "n_atoms": np.nan, "charge": np.nan,
+              "multiplicity": np.nan, "geometry_source": "", "status": "failed", "reason": r.reason} for r in rejected]
     table = pd.DataFrame(rows, columns=COLUMNS)
     value_column, std_column = f"{target}_{unit}", f"std_{unit}"
     table[value_column] = np.nan
@@ -92,7 +107,7 @@ def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejec
                 table.loc[row, ["status", "reason"]] = ["failed", failure]
             elif why:
                 table.loc[row, ["status", "reason"]] = ["flagged", why]
-    table = table.sort_values("record", kind="stable", na_position="last").reset_index(drop=True)
+    table = whole_numbers(table.sort_values("record", kind="stable", na_position="last").reset_index(drop=True))
     return finish_ranking(table, unit=unit, target=target) if rank else table
 
 
