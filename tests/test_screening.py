@@ -159,9 +159,7 @@ def test_screen_chunk_with_an_undescribable_molecule_finishes(tmp_path, qm9, geo
 
 def test_predictions_that_are_not_finite_are_never_ok(qm9, geometry_model):
     model = geometry_model
-    damaged = EnergyModel(model.descriptor, model.regressor)
-    damaged.descriptor_, damaged.applicability_, damaged.route_ = model.descriptor_, model.applicability_, model.route_
-    damaged.regressor_ = copy.deepcopy(model.regressor_)
+    damaged = copy.deepcopy(model)
     damaged.regressor_.coef_[0] = np.nan  # as in a model file edited with its checksum recomputed
     molecules = qm9.molecules(qm9.sample(3, seed=42, elements=["H", "C", "N", "O"]))
     table = prediction_table(damaged, molecules, target="atomization_energy", rank=False)
