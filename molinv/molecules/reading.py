@@ -276,8 +276,9 @@ def _finish(atoms: Atoms, units: UnitsDeclared, name: str, source: str) -> None:
     atoms.info.setdefault("name", name)
     atoms.info["name"] = str(atoms.info["name"])
     atoms.info["source"] = source
-    settle_electronic_state(atoms)
+    # The geometry first: a dummy atom or a unit mix-up explains an odd electron count too.
     check_geometry(atoms)
+    settle_electronic_state(atoms)
 
 
 def _as_number(value) -> float | None:
