@@ -1,5 +1,4 @@
-"""Screening throughput (embedding, describing, predicting), memory as the input grows, and the
-cost of force-field geometries.
+"""Screening throughput (embedding, describing, predicting) and memory as the input grows.
 
     nice -n 5 python benchmarks/bench_screening.py --train 5000 --screen 1000 --sizes 5000 20000 --jobs 2
 
@@ -11,9 +10,8 @@ cost of force-field geometries.
    ``screen_file`` with --jobs local worker processes (embedding, describing and predicting
    per chunk in the workers); molecules per second, and the peak resident memory of the
    whole process tree (this process and its workers, sampled every 0.2 s from /proc; Linux).
-4. For --geometry held-out molecules, predicts the atomization energy from QM9's own
-   B3LYP geometry and from the SMILES-embedded one, and reports both MAEs against QM9
-   and their mean absolute difference (kcal/mol).
+The model is trained on the SMILES route (geometries embedded from the training molecules'
+SMILES); what the route costs in accuracy is measured by bench_smiles_route.py.
 
 Data: QM9 (Ramakrishnan et al., Sci. Data 1, 140022, 2014). Timings on a shared 2-core
 machine are noisy; compare stages as ratios within one run.
@@ -35,8 +33,8 @@ import pandas as pd
 from molinv.cluster import LocalProcesses
 from molinv.molecules import embed_smiles
 from molinv.molecules.checks import MoleculeError
+from molinv.molecules.route import onto_embedded_route
 from molinv.molecules.qm9 import open_qm9
-from molinv.molecules.units import convert_energy
 from molinv.recipes import EnergyModel, make_descriptor, make_regressor
 from molinv.screening.screen import screen_file
 
@@ -102,7 +100,6 @@ def main() -> None:
                         help="SMILES counts screened end to end (memory flatness)")
     parser.add_argument("--jobs", type=int, default=2, help="worker processes for the end-to-end screens")
     parser.add_argument("--chunk-size", type=int, default=500)
-    parser.add_argument("--geometry", type=int, default=500)
     parser.add_argument("--descriptor", default="bonds")
     parser.add_argument("--model", default="large")
     parser.add_argument("--seed", type=int, default=0)
@@ -110,7 +107,9 @@ def main() -> None:
 
     qm9 = open_qm9()
     order = np.random.default_rng(args.seed).permutation(len(qm9))
-    train = qm9.molecules(order[: args.train])
+    # On the screening route: training geometries embedded from their SMILES, as the candidates'.
+    train = [m for m in onto_embedded_route(qm9.molecules(order[: args.train]), n_jobs=args.jobs)
+             if not isinstance(m, str)]
     started = time.perf_counter()
     descriptor = make_descriptor(args.descriptor)
     regressor = make_regressor(args.model, descriptor.per_atom, descriptor=args.descriptor)
@@ -163,25 +162,6 @@ def main() -> None:
         print(f"  CPU: workers {worker_cpu:.0f} s ({size / worker_cpu:.1f} mol/s per core, "
               f"{args.jobs * size / worker_cpu:.1f} mol/s on {args.jobs} free cores), main process {main_cpu:.0f} s",
               flush=True)
-    if args.geometry <= 0:
-        return
-
-    held_out = order[start + max(args.sizes, default=0) : start + max(args.sizes, default=0) + args.geometry]
-    own = qm9.molecules(held_out)
-    pairs = []
-    for atoms in own:
-        try:
-            pairs.append((atoms, embed_smiles(atoms.info["smiles"])))
-        except MoleculeError:
-            pass
-    reference = np.array([a.info["atomization_energy"] for a, _ in pairs])
-    from_qm9 = model.predict([a for a, _ in pairs])
-    from_embedding = model.predict([b for _, b in pairs])
-    kcal = lambda v: convert_energy(v, "eV", "kcal/mol")  # noqa: E731
-    print(f"geometry effect on {len(pairs)} held-out molecules (kcal/mol):")
-    print(f"  MAE from QM9 geometries      {kcal(np.abs(from_qm9 - reference).mean()):.2f}")
-    print(f"  MAE from embedded geometries {kcal(np.abs(from_embedding - reference).mean()):.2f}")
-    print(f"  mean |difference|            {kcal(np.abs(from_embedding - from_qm9).mean()):.2f}")
 
 
 if __name__ == "__main__":
