@@ -21,7 +21,7 @@ import os
 import re
 import signal
 import threading
-from contextlib import contextmanager
+from contextlib import contextmanager, nullcontext
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterable, Iterator, NamedTuple, Sequence
@@ -234,7 +234,8 @@ class PendingRecord:
     def build_molecule(self) -> Atoms | Rejected:
         """The molecule, or the record's rejection; raises KeyboardInterrupt when Ctrl-C was
         pressed while RDKit embedded it."""
-        with _sigint_held(), rdkit_messages() as messages:
+        # Only embedding sets RDKit's own SIGINT handler (see _sigint_held).
+        with _sigint_held() if self.smiles is not None else nullcontext(), rdkit_messages() as messages:
             built = self._build()
         if any(RDKIT_INTERRUPTED in message for message in messages):
             # A SIGINT that reached RDKit in another thread: it cancelled this embedding and returned.
