@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from importlib import resources
 from pathlib import Path
 
 from .molecules.units import ENERGY_UNITS, LENGTH_UNITS
@@ -571,7 +572,8 @@ def run_pick_loop(args) -> int:
     return 0
 
 
-DEMO_DATA = Path(__file__).resolve().parent.parent / "data_demo" / "candidates.csv"
+# Package data: found the same way in a source checkout and in an installed wheel.
+DEMO_DATA = Path(str(resources.files("molinv.demo_data") / "candidates.csv"))
 
 
 def run_demo(args) -> int:
@@ -587,8 +589,7 @@ def run_demo(args) -> int:
 
     candidates_file = args.candidates
     if not candidates_file.is_file():
-        raise CommandError(f"{candidates_file}: demo candidates not found (run from the molinv source folder "
-                           "or give --candidates)")
+        raise CommandError(f"{candidates_file}: demo candidates not found (give --candidates)")
     out = args.out
     print(f"1/3 loading {args.molecules} QM9 molecules ({CITATION}), geometries made from their SMILES")
     # Trained on geometries made from the SMILES, as the candidates' are.
