@@ -11,8 +11,9 @@ import sys
 from importlib import resources
 from pathlib import Path
 
+from .errors import MolinvError
 from .molecules.units import ENERGY_UNITS, LENGTH_UNITS
-from .outputs import OutputError, check_writable, written_atomically
+from .outputs import check_writable, written_atomically
 
 UNITS_HELP = (
     "Internal units are eV and Angstrom. Lengths in input files: "
@@ -23,7 +24,7 @@ UNITS_HELP = (
 )
 
 
-class CommandError(Exception):
+class CommandError(MolinvError):
     """A user-facing failure: printed as one line, no traceback."""
 
 
@@ -800,25 +801,11 @@ def check_outputs(args) -> None:
 
 
 def main(argv=None) -> int:
-    from .descriptors.base import DescriptorError
-    from .evaluation import CurveError
-    from .models.inputs import ModelInputError
-    from .models.modelfile import ModelFileError
-    from .molecules.qm9 import Qm9Unavailable
-    from .molecules.reading import InputError
-    from .molecules.units import UnitError
-    from .cluster.chunks import ChunkError
-    from .cluster.dask_cluster import ClusterError
-    from .labels import LabelError
-    from .recipes import RecipeError
-    from .screening.screen import ScreenError
-
     args = build_parser().parse_args(argv)
     try:
         check_outputs(args)
         return args.run(args)
-    except (CommandError, InputError, UnitError, RecipeError, DescriptorError, ModelInputError, ModelFileError,
-            CurveError, Qm9Unavailable, ScreenError, LabelError, ChunkError, ClusterError, OutputError) as error:
+    except MolinvError as error:
         print(f"molinv {args.verb}: error: {error}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

@@ -16,6 +16,7 @@ import numpy as np
 from sklearn.base import BaseEstimator, RegressorMixin, clone
 from sklearn.utils.validation import check_is_fitted
 
+from molinv.errors import MolinvError
 from molinv.descriptors.base import MoleculeDescriptor, descriptor_from_settings
 from molinv.models.inputs import with_element_counts
 from molinv.models.modelfile import load_model, read_extra_arrays, save_model
@@ -101,7 +102,7 @@ MODEL_HELP = {
 DESCRIPTOR_ARRAY_PREFIX = "descriptor."
 
 
-class RecipeError(ValueError):
+class RecipeError(MolinvError, ValueError):
     """An unknown descriptor or model name, or a pairing that cannot work."""
 
 

@@ -28,6 +28,7 @@ import pandas as pd
 from sklearn.base import clone
 from tqdm.auto import tqdm
 
+from molinv.errors import MolinvError
 from molinv.molecules.units import convert_energy
 from molinv.outputs import written_atomically
 
@@ -35,7 +36,7 @@ from molinv.outputs import written_atomically
 DEFAULT_SIZES = (100, 200, 500, 1000, 2000, 5000, 10000, 20000, 50000, 100000)
 
 
-class CurveError(ValueError):
+class CurveError(MolinvError, ValueError):
     """Settings a learning curve cannot run with."""
 
 

@@ -19,10 +19,11 @@ from dataclasses import dataclass
 import numpy as np
 from ase.data import chemical_symbols
 
+from molinv.errors import MolinvError
 from molinv.descriptors.base import AtomFeatures, element_numbers
 
 
-class ModelInputError(ValueError):
+class ModelInputError(MolinvError, ValueError):
     """Features or targets a model cannot use: wrong kind, shape, elements or values."""
 
 

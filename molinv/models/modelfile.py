@@ -26,6 +26,7 @@ import scipy
 import sklearn
 from ase.data import chemical_symbols
 
+from molinv.errors import MolinvError
 import molinv
 from molinv.models.baseline import ElementBaseline
 from molinv.models.inputs import fingerprint
@@ -57,7 +58,7 @@ MODEL_CLASSES = {
 DEFAULT_UNITS = {"energy": "eV", "length": "Angstrom"}
 
 
-class ModelFileError(ValueError):
+class ModelFileError(MolinvError, ValueError):
     """A model file that cannot be used: unreadable, truncated, edited, or of another format version."""
 
     def __init__(self, path, reason: str):

@@ -22,6 +22,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from molinv.errors import MolinvError
 from molinv.cluster.chunks import ChunkError, ChunkReport, claim_folder, file_fingerprint, run_chunks
 from molinv.descriptors.store import molecules_fingerprint
 from molinv.molecules.checks import Rejected
@@ -37,7 +38,7 @@ from .table import CAUTION, prediction_table
 SHOWN_REASON_KINDS = 8
 
 
-class ScreenError(ValueError):
+class ScreenError(MolinvError, ValueError):
     """A screen that cannot start or resume (for example: folder of another screen)."""
 
 
