@@ -16,8 +16,8 @@ import numpy as np
 from sklearn.base import BaseEstimator, RegressorMixin, clone
 from sklearn.utils.validation import check_is_fitted
 
-from molinv.errors import MolinvError
 from molinv.descriptors.base import MoleculeDescriptor, descriptor_from_settings
+from molinv.errors import MolinvError
 from molinv.models.inputs import with_element_counts
 from molinv.models.modelfile import load_model, read_extra_arrays, save_model
 from molinv.molecules import route as routes

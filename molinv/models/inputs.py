@@ -19,8 +19,8 @@ from dataclasses import dataclass
 import numpy as np
 from ase.data import chemical_symbols
 
-from molinv.errors import MolinvError
 from molinv.descriptors.base import AtomFeatures, element_numbers
+from molinv.errors import MolinvError
 
 
 class ModelInputError(MolinvError, ValueError):

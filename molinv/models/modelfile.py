@@ -26,8 +26,8 @@ import scipy
 import sklearn
 from ase.data import chemical_symbols
 
-from molinv.errors import MolinvError
 import molinv
+from molinv.errors import MolinvError
 from molinv.models.baseline import ElementBaseline
 from molinv.models.inputs import fingerprint
 from molinv.models.kernel_ridge import AtomwiseKernelRidge, AtomwiseKernelRidgeCV, KernelRidgeCV, KernelRidgeModel

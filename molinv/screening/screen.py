@@ -22,9 +22,9 @@ from pathlib import Path
 
 import pandas as pd
 
-from molinv.errors import MolinvError
 from molinv.cluster.chunks import ChunkError, ChunkReport, claim_folder, file_fingerprint, run_chunks
 from molinv.descriptors.store import molecules_fingerprint
+from molinv.errors import MolinvError
 from molinv.molecules.checks import Rejected
 from molinv.molecules.packed import MoleculeChunk, packed_chunks
 from molinv.molecules.reading import iter_records
