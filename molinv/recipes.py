@@ -53,7 +53,7 @@ KERNEL_REGULARIZATIONS = (1e-10, 1e-8, 1e-6, 1e-4, 1e-3, 1e-2, 1e-1, 1.0)
 #: features for bag of bonds and the sorted Coulomb matrix (as published for them: Hansen et al.,
 #: J. Phys. Chem. Lett. 6, 2326, 2015, from memory), the Laplacian on standardised eigenvalues,
 #: and the Gaussian on standardised scattering invariants (half the error of the Laplacian; for
-#: 'density-exact' by the held-out comparison in the README, not cross-validated here).
+#: 'density-exact' by the held-out comparison in benchmarks/RESULTS.md, not cross-validated here).
 GLOBAL_KERNEL_CHOICE = {
     "bonds": ("laplacian", False),
     "coulomb-sorted": ("laplacian", False),
