@@ -88,6 +88,28 @@ def check_regularizations(values) -> np.ndarray:
     return values
 
 
+def cv_splitter(cv, random_state):
+    """What ``cv`` of a cross-validated model stands for: an int k is ``KFold(k, shuffle=True,
+    random_state=random_state)``; a scikit-learn splitter (``split`` and ``get_n_splits``) is used as given."""
+    if isinstance(cv, (int, np.integer)) and not isinstance(cv, bool):
+        if cv < 2:
+            raise ModelInputError(f"cv must be at least 2 folds, got {cv!r}")
+        return KFold(int(cv), shuffle=True, random_state=random_state)
+    if not (hasattr(cv, "split") and hasattr(cv, "get_n_splits")):
+        raise ModelInputError(f"cv must be an int or a scikit-learn splitter, got {cv!r}")
+    return cv
+
+
+def cv_folds(cv, n_rows: int, random_state) -> list[tuple[np.ndarray, np.ndarray]]:
+    """The (training, validation) row indices of each fold over ``n_rows`` rows (see :func:`cv_splitter`)."""
+    splitter = cv_splitter(cv, random_state)
+    rows = np.zeros((n_rows, 1))
+    n_folds = splitter.get_n_splits(rows)
+    if n_folds > n_rows:
+        raise ModelInputError(f"cv asks for {n_folds} folds of {n_rows} molecules; give at most {n_rows}")
+    return list(splitter.split(rows))
+
+
 def solve_regularized(kernel: np.ndarray, y: np.ndarray, regularization: float, work: np.ndarray | None = None) -> np.ndarray:
     """``(K + lambda I)^{-1} y`` by Cholesky; least squares if ``K + lambda I`` is not positive definite
     (the same fallback as :class:`sklearn.kernel_ridge.KernelRidge`). ``kernel`` is left intact;
@@ -338,12 +360,6 @@ class _GridSearch:
     def _width_unit_value(self, features) -> float:
         return width_unit_value(self.width_unit, features, self._make_kernel(), self.random_state)
 
-    def _folds(self, n: int):
-        splitter = KFold(self.cv, shuffle=True, random_state=self.random_state) if isinstance(self.cv, int) else self.cv
-        if not hasattr(splitter, "split"):
-            raise ModelInputError(f"cv must be an int or a scikit-learn splitter, got {self.cv!r}")
-        return list(splitter.split(np.zeros((n, 1))))
-
     def _fold_kernels(self, X, kernel, folds, widths, shared):
         """``(i_fold, i_width, K_train, K_validation)`` for every fold and width. With ``shared`` (the
         kernel table of the whole training set) each width's kernel is computed once and the fold
@@ -393,7 +409,7 @@ class _GridSearch:
         and the kernel table of ``X`` when one was shared by all folds (else None)."""
         regularizations = check_regularizations(self.regularizations)
         self.solver_ = choose_solver(self.solver, len(regularizations))
-        folds = self._folds(len(y))
+        folds = cv_folds(self.cv, len(y), self.random_state)
         kernel = self._make_kernel()
         training_features = self._fit_features(X)
         self.width_unit_value_ = self._width_unit_value(training_features)
