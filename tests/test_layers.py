@@ -51,3 +51,40 @@ def test_no_import_climbs_a_layer():
             if name != "molinv" and LAYERS.index(part_of(name)) > here:
                 climbing.append(f"molinv/{relative}:{line} imports {name}")
     assert not climbing, "\n".join(climbing)
+
+
+def module_name(path: Path) -> str:
+    return ".".join(path.relative_to(PACKAGE.parent).with_suffix("").parts)
+
+
+def module_imports(path: Path) -> set[str]:
+    """The molinv modules (files, not packages) that ``path`` imports, anywhere in it."""
+    package = module_name(path).rsplit(".", 1)[0] if path.name != "__init__.py" else module_name(path)[:-9]
+    found = set()
+    for node in ast.walk(ast.parse(path.read_text())):
+        if isinstance(node, ast.ImportFrom):
+            base = package.split(".")[: len(package.split(".")) - node.level + 1] if node.level else []
+            target = ".".join(base + ([node.module] if node.module else []))
+            found |= {f"{target}.{alias.name}" for alias in node.names} | {target}
+        elif isinstance(node, ast.Import):
+            found |= {alias.name for alias in node.names}
+    files = {module_name(p) for p in PACKAGE.rglob("*.py") if p.name != "__init__.py"}
+    return found & files
+
+
+def test_no_two_modules_import_each_other():
+    # Packages' __init__ files are left out: they gather their modules' names, and a module may
+    # import its own package to have every class registered (descriptors.base does).
+    graph = {module_name(p): module_imports(p) for p in PACKAGE.rglob("*.py") if p.name != "__init__.py"}
+    circles = []
+
+    def visit(module, path):
+        for target in sorted(graph.get(module, ())):
+            if target == path[0]:
+                circles.append(" -> ".join(path + [target]))
+            elif target not in path and target > path[0]:  # each circle once, from its smallest module
+                visit(target, path + [target])
+
+    for start in sorted(graph):
+        visit(start, [start])
+    assert not circles, "\n".join(circles)

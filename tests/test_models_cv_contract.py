@@ -12,6 +12,7 @@ from sklearn.model_selection import GridSearchCV, KFold
 
 from molinv.evaluation.curves import fit_summary
 from molinv.models import KernelRidgeCV, ModelInputError, NystromRidgeCV
+from molinv.models.kernel_ridge import fixed_hyperparameters
 
 WIDTHS = (0.4, 0.8, 1.6, 3.2)
 REGULARIZATIONS = (1e-4, 1e-3, 1e-2, 1e-1)
@@ -72,3 +73,13 @@ def test_fit_summary_counts_the_folds_of_a_splitter():
     X, y = synthetic()
     model = exact_models(KFold(3))[0].fit(X, y)
     assert fit_summary(model)[0].startswith("cross-validated MAE (3-fold, 90 molecules)")
+
+
+@pytest.mark.parametrize("model_index", [0, 1], ids=["KernelRidgeCV", "NystromRidgeCV"])
+def test_fixed_hyperparameters_refit_predicts_as_the_search_did(model_index):
+    X, y = synthetic()
+    searched = exact_models(3)[model_index].fit(X[:70], y[:70])
+    fixed = fixed_hyperparameters(searched)
+    assert type(fixed) is type(searched).fixed_class and not hasattr(fixed, "cv")
+    assert (fixed.width, fixed.regularization) == (searched.width_, searched.regularization_)
+    np.testing.assert_allclose(fixed.fit(X[:70], y[:70]).predict(X[70:]), searched.predict(X[70:]), atol=1e-8)

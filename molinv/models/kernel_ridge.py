@@ -503,6 +503,8 @@ class KernelRidgeCV(_GlobalFeatures, _GridSearch, _KernelRidgeBase):
         many (drawn with ``random_state``) and the choice refitted on all rows; None: all rows.
     """
 
+    fixed_class = KernelRidgeModel  # what fixed_hyperparameters makes of a fitted model
+
     def __init__(self, kernel="laplacian", widths=(1.0, 4.0, 16.0, 64.0, 256.0, 1024.0),
                  regularizations=(1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0), cv=5, random_state=0, solver="auto",
                  scale=False, baseline="elements", predictive_std=True, interval_level=0.9, progress=None,
@@ -574,6 +576,8 @@ class AtomwiseKernelRidgeCV(_AtomFeatures, _GridSearch, _KernelRidgeBase):
     {_STD_DOC}
     """
 
+    fixed_class = AtomwiseKernelRidge  # what fixed_hyperparameters makes of a fitted model
+
     def __init__(self, widths=(0.5, 1.0, 2.0, 4.0), regularizations=(1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0), cv=5,
                  random_state=0, solver="auto", dtype="float64", block_size=2048, baseline="elements",
                  predictive_std=True, interval_level=0.9, progress=None, width_unit="absolute", search_size=None):
@@ -595,13 +599,9 @@ class AtomwiseKernelRidgeCV(_AtomFeatures, _GridSearch, _KernelRidgeBase):
 def fixed_hyperparameters(model):
     """An unfitted model of the fixed-hyperparameter class with the width and regularisation that the
     fitted cross-validated ``model`` chose, its other settings kept: refits skip the search."""
-    from molinv.models.nystrom import NystromRidge, NystromRidgeCV
-
-    counterparts = {KernelRidgeCV: KernelRidgeModel, AtomwiseKernelRidgeCV: AtomwiseKernelRidge,
-                    NystromRidgeCV: NystromRidge}
-    if type(model) not in counterparts:
+    target = getattr(type(model), "fixed_class", None)
+    if target is None:
         raise ModelInputError(f"{type(model).__name__} has no fixed-hyperparameter counterpart")
     check_is_fitted(model, "width_")
-    target = counterparts[type(model)]
     settings = {name: value for name, value in model.get_params().items() if name in target().get_params()}
     return target(**{**settings, "width": model.width_, "regularization": model.regularization_})

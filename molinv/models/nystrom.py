@@ -349,6 +349,8 @@ class NystromRidgeCV(NystromRidge):
     grid points whose final factorisation failed) besides the fitted state of :class:`NystromRidge`.
     """
 
+    fixed_class = NystromRidge  # what fixed_hyperparameters makes of a fitted model
+
     def __init__(self, kernel="gaussian", widths=(0.5, 1.0, 2.0, 4.0), regularizations=(1e-8, 1e-6, 1e-4, 1e-2),
                  cv=5, width_unit="median", n_landmarks=1000, random_state=0, rcond=1e-12, dtype="float64",
                  scale=False, baseline="elements", chunk_size=2000, predictive_std=True, interval_level=0.9,
