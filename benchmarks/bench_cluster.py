@@ -9,7 +9,7 @@
    (--workers single-threaded worker processes), alternating the order over --repeats,
    each into a fresh folder; checks the two ranked tables are identical; reports wall
    times, the overhead ratio (Dask / local, best of the repeats) and the time per chunk
-   inside the workers, from which the throughput on N machines follows (see README).
+   inside the workers, from which the throughput on N machines follows (see benchmarks/RESULTS.md).
 
 Data: QM9 (Ramakrishnan et al., Sci. Data 1, 140022, 2014). On a shared machine timings are
 noisy: compare the two paths as ratios within one run.

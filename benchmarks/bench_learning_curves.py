@@ -14,7 +14,7 @@ the plots and report.html. ``--atom-components`` projects the atom-centred vecto
 100,000 molecules fit in memory; give the same value on every rerun.
 
 Data: QM9 (Ramakrishnan et al., Sci. Data 1, 140022, 2014). Published kernel-ridge
-results for comparison are beside the table in the README, with their sources.
+results for comparison are beside the table in benchmarks/RESULTS.md, with their sources.
 """
 
 from __future__ import annotations

@@ -8,10 +8,12 @@ from __future__ import annotations
 
 import argparse
 import sys
+from importlib import resources
 from pathlib import Path
 
+from .errors import MolinvError
 from .molecules.units import ENERGY_UNITS, LENGTH_UNITS
-from .outputs import OutputError, check_writable, written_atomically
+from .outputs import check_writable, written_atomically
 
 UNITS_HELP = (
     "Internal units are eV and Angstrom. Lengths in input files: "
@@ -22,7 +24,7 @@ UNITS_HELP = (
 )
 
 
-class CommandError(Exception):
+class CommandError(MolinvError):
     """A user-facing failure: printed as one line, no traceback."""
 
 
@@ -571,7 +573,8 @@ def run_pick_loop(args) -> int:
     return 0
 
 
-DEMO_DATA = Path(__file__).resolve().parent.parent / "data_demo" / "candidates.csv"
+# Package data: found the same way in a source checkout and in an installed wheel.
+DEMO_DATA = Path(str(resources.files("molinv.demo_data") / "candidates.csv"))
 
 
 def run_demo(args) -> int:
@@ -587,8 +590,7 @@ def run_demo(args) -> int:
 
     candidates_file = args.candidates
     if not candidates_file.is_file():
-        raise CommandError(f"{candidates_file}: demo candidates not found (run from the molinv source folder "
-                           "or give --candidates)")
+        raise CommandError(f"{candidates_file}: demo candidates not found (give --candidates)")
     out = args.out
     print(f"1/3 loading {args.molecules} QM9 molecules ({CITATION}), geometries made from their SMILES")
     # Trained on geometries made from the SMILES, as the candidates' are.
@@ -799,25 +801,11 @@ def check_outputs(args) -> None:
 
 
 def main(argv=None) -> int:
-    from .descriptors.base import DescriptorError
-    from .evaluation import CurveError
-    from .models.inputs import ModelInputError
-    from .models.modelfile import ModelFileError
-    from .molecules.qm9 import Qm9Unavailable
-    from .molecules.reading import InputError
-    from .molecules.units import UnitError
-    from .cluster.chunks import ChunkError
-    from .cluster.dask_cluster import ClusterError
-    from .labels import LabelError
-    from .recipes import RecipeError
-    from .screening.screen import ScreenError
-
     args = build_parser().parse_args(argv)
     try:
         check_outputs(args)
         return args.run(args)
-    except (CommandError, InputError, UnitError, RecipeError, DescriptorError, ModelInputError, ModelFileError,
-            CurveError, Qm9Unavailable, ScreenError, LabelError, ChunkError, ClusterError, OutputError) as error:
+    except MolinvError as error:
         print(f"molinv {args.verb}: error: {error}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

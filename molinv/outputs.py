@@ -16,8 +16,10 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Iterator
 
+from molinv.errors import MolinvError
 
-class OutputError(OSError):
+
+class OutputError(MolinvError, OSError):
     """An output location that cannot be written (missing rights, not a folder, full disk)."""
 
 

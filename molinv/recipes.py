@@ -17,6 +17,7 @@ from sklearn.base import BaseEstimator, RegressorMixin, clone
 from sklearn.utils.validation import check_is_fitted
 
 from molinv.descriptors.base import MoleculeDescriptor, descriptor_from_settings
+from molinv.errors import MolinvError
 from molinv.models.inputs import with_element_counts
 from molinv.models.modelfile import load_model, read_extra_arrays, save_model
 from molinv.molecules import route as routes
@@ -52,7 +53,7 @@ KERNEL_REGULARIZATIONS = (1e-10, 1e-8, 1e-6, 1e-4, 1e-3, 1e-2, 1e-1, 1.0)
 #: features for bag of bonds and the sorted Coulomb matrix (as published for them: Hansen et al.,
 #: J. Phys. Chem. Lett. 6, 2326, 2015, from memory), the Laplacian on standardised eigenvalues,
 #: and the Gaussian on standardised scattering invariants (half the error of the Laplacian; for
-#: 'density-exact' by the held-out comparison in the README, not cross-validated here).
+#: 'density-exact' by the held-out comparison in benchmarks/RESULTS.md, not cross-validated here).
 GLOBAL_KERNEL_CHOICE = {
     "bonds": ("laplacian", False),
     "coulomb-sorted": ("laplacian", False),
@@ -101,7 +102,7 @@ MODEL_HELP = {
 DESCRIPTOR_ARRAY_PREFIX = "descriptor."
 
 
-class RecipeError(ValueError):
+class RecipeError(MolinvError, ValueError):
     """An unknown descriptor or model name, or a pairing that cannot work."""
 
 

@@ -31,12 +31,13 @@ from typing import Callable, Iterable, Iterator
 import numpy as np
 import pandas as pd
 from tqdm.auto import tqdm
+from molinv.errors import MolinvError
 from molinv.outputs import written_atomically
 
 PART_PATTERN = "part-{number:06d}{suffix}"
 
 
-class ChunkError(RuntimeError):
+class ChunkError(MolinvError, RuntimeError):
     """A chunk folder that cannot be used, or a task result that cannot be written."""
 
 

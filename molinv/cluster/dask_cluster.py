@@ -33,6 +33,8 @@ from itertools import islice
 from pathlib import Path
 from typing import Callable, Iterable, Iterator
 
+from molinv.errors import MolinvError
+
 #: Dask's setting that makes workers hand freed memory back to the system. Any such glibc
 #: setting also freezes glibc's mmap threshold at 128 KiB (mallopt(3)), so every numpy
 #: temporary above that size is mapped, page-faulted and unmapped anew: describing 500 QM9
@@ -44,7 +46,7 @@ JOBQUEUE_KINDS = {"slurm": "SLURMCluster", "pbs": "PBSCluster", "sge": "SGEClust
                   "htcondor": "HTCondorCluster", "moab": "MoabCluster", "oar": "OARCluster"}
 
 
-class ClusterError(RuntimeError):
+class ClusterError(MolinvError, RuntimeError):
     """A cluster that cannot be reached or set up, or workers that cannot see the output folder."""
 
 

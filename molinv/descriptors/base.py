@@ -22,8 +22,10 @@ from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.utils.validation import check_is_fitted
 from tqdm.auto import tqdm
 
+from molinv.errors import MolinvError
 
-class DescriptorError(ValueError):
+
+class DescriptorError(MolinvError, ValueError):
     """Bad input to a descriptor: wrong type, or an element it was not fitted for."""
 
 

@@ -28,6 +28,8 @@ import pandas as pd
 from sklearn.base import clone
 from tqdm.auto import tqdm
 
+from molinv.errors import MolinvError
+from molinv.models.kernel_ridge import cv_splitter
 from molinv.molecules.units import convert_energy
 from molinv.outputs import written_atomically
 
@@ -35,7 +37,7 @@ from molinv.outputs import written_atomically
 DEFAULT_SIZES = (100, 200, 500, 1000, 2000, 5000, 10000, 20000, 50000, 100000)
 
 
-class CurveError(ValueError):
+class CurveError(MolinvError, ValueError):
     """Settings a learning curve cannot run with."""
 
 
@@ -126,7 +128,8 @@ def fit_summary(model, unit: str = "kcal/mol") -> list[str]:
     i_reg = int(np.argmin(np.abs(np.log(regularizations) - np.log(model.regularization_))))
     mae = float(errors[i_width, i_reg])
     searched = len(getattr(model, "search_rows_", []))
-    lines = [f"cross-validated MAE ({getattr(model, 'cv', 5)}-fold, {searched} molecules): "
+    n_folds = cv_splitter(getattr(model, "cv", 5), None).get_n_splits(np.zeros((searched, 1)))
+    lines = [f"cross-validated MAE ({n_folds}-fold, {searched} molecules): "
              f"{convert_energy(mae, 'eV', unit):.3g} {unit} ({mae:.3g} eV)"]
     in_medians = getattr(model, "width_unit", "absolute") == "median"
     width = (f"{model.width_ / scale:g} x the median training distance ({model.width_:.4g} in descriptor units)"

@@ -26,6 +26,7 @@ import numpy as np
 from ase import Atoms
 from ase.data import chemical_symbols
 
+from molinv.errors import MolinvError
 from molinv.molecules.checks import MoleculeError
 from molinv.molecules.electrons import electronic_state
 from molinv.molecules.units import ENERGY_UNITS, LENGTH_UNITS
@@ -43,11 +44,11 @@ ATOM_MULTIPLICITY = {
 XTB_MAX_Z = 86
 
 
-class LabelError(ValueError):
+class LabelError(MolinvError, ValueError):
     """Settings or a labels file that a labelling run cannot use."""
 
 
-class LabelFailure(RuntimeError):
+class LabelFailure(MolinvError, RuntimeError):
     """One molecule that could not be computed; the message is the reason recorded."""
 
 

@@ -20,9 +20,10 @@ import numpy as np
 from ase.data import chemical_symbols
 
 from molinv.descriptors.base import AtomFeatures, element_numbers
+from molinv.errors import MolinvError
 
 
-class ModelInputError(ValueError):
+class ModelInputError(MolinvError, ValueError):
     """Features or targets a model cannot use: wrong kind, shape, elements or values."""
 
 

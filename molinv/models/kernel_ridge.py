@@ -88,6 +88,28 @@ def check_regularizations(values) -> np.ndarray:
     return values
 
 
+def cv_splitter(cv, random_state):
+    """What ``cv`` of a cross-validated model stands for: an int k is ``KFold(k, shuffle=True,
+    random_state=random_state)``; a scikit-learn splitter (``split`` and ``get_n_splits``) is used as given."""
+    if isinstance(cv, (int, np.integer)) and not isinstance(cv, bool):
+        if cv < 2:
+            raise ModelInputError(f"cv must be at least 2 folds, got {cv!r}")
+        return KFold(int(cv), shuffle=True, random_state=random_state)
+    if not (hasattr(cv, "split") and hasattr(cv, "get_n_splits")):
+        raise ModelInputError(f"cv must be an int or a scikit-learn splitter, got {cv!r}")
+    return cv
+
+
+def cv_folds(cv, n_rows: int, random_state) -> list[tuple[np.ndarray, np.ndarray]]:
+    """The (training, validation) row indices of each fold over ``n_rows`` rows (see :func:`cv_splitter`)."""
+    splitter = cv_splitter(cv, random_state)
+    rows = np.zeros((n_rows, 1))
+    n_folds = splitter.get_n_splits(rows)
+    if n_folds > n_rows:
+        raise ModelInputError(f"cv asks for {n_folds} folds of {n_rows} molecules; give at most {n_rows}")
+    return list(splitter.split(rows))
+
+
 def solve_regularized(kernel: np.ndarray, y: np.ndarray, regularization: float, work: np.ndarray | None = None) -> np.ndarray:
     """``(K + lambda I)^{-1} y`` by Cholesky; least squares if ``K + lambda I`` is not positive definite
     (the same fallback as :class:`sklearn.kernel_ridge.KernelRidge`). ``kernel`` is left intact;
@@ -338,12 +360,6 @@ class _GridSearch:
     def _width_unit_value(self, features) -> float:
         return width_unit_value(self.width_unit, features, self._make_kernel(), self.random_state)
 
-    def _folds(self, n: int):
-        splitter = KFold(self.cv, shuffle=True, random_state=self.random_state) if isinstance(self.cv, int) else self.cv
-        if not hasattr(splitter, "split"):
-            raise ModelInputError(f"cv must be an int or a scikit-learn splitter, got {self.cv!r}")
-        return list(splitter.split(np.zeros((n, 1))))
-
     def _fold_kernels(self, X, kernel, folds, widths, shared):
         """``(i_fold, i_width, K_train, K_validation)`` for every fold and width. With ``shared`` (the
         kernel table of the whole training set) each width's kernel is computed once and the fold
@@ -393,7 +409,7 @@ class _GridSearch:
         and the kernel table of ``X`` when one was shared by all folds (else None)."""
         regularizations = check_regularizations(self.regularizations)
         self.solver_ = choose_solver(self.solver, len(regularizations))
-        folds = self._folds(len(y))
+        folds = cv_folds(self.cv, len(y), self.random_state)
         kernel = self._make_kernel()
         training_features = self._fit_features(X)
         self.width_unit_value_ = self._width_unit_value(training_features)
@@ -487,6 +503,8 @@ class KernelRidgeCV(_GlobalFeatures, _GridSearch, _KernelRidgeBase):
         many (drawn with ``random_state``) and the choice refitted on all rows; None: all rows.
     """
 
+    fixed_class = KernelRidgeModel  # what fixed_hyperparameters makes of a fitted model
+
     def __init__(self, kernel="laplacian", widths=(1.0, 4.0, 16.0, 64.0, 256.0, 1024.0),
                  regularizations=(1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0), cv=5, random_state=0, solver="auto",
                  scale=False, baseline="elements", predictive_std=True, interval_level=0.9, progress=None,
@@ -558,6 +576,8 @@ class AtomwiseKernelRidgeCV(_AtomFeatures, _GridSearch, _KernelRidgeBase):
     {_STD_DOC}
     """
 
+    fixed_class = AtomwiseKernelRidge  # what fixed_hyperparameters makes of a fitted model
+
     def __init__(self, widths=(0.5, 1.0, 2.0, 4.0), regularizations=(1e-10, 1e-8, 1e-6, 1e-4, 1e-2, 1.0), cv=5,
                  random_state=0, solver="auto", dtype="float64", block_size=2048, baseline="elements",
                  predictive_std=True, interval_level=0.9, progress=None, width_unit="absolute", search_size=None):
@@ -579,13 +599,9 @@ class AtomwiseKernelRidgeCV(_AtomFeatures, _GridSearch, _KernelRidgeBase):
 def fixed_hyperparameters(model):
     """An unfitted model of the fixed-hyperparameter class with the width and regularisation that the
     fitted cross-validated ``model`` chose, its other settings kept: refits skip the search."""
-    from molinv.models.nystrom import NystromRidge, NystromRidgeCV
-
-    counterparts = {KernelRidgeCV: KernelRidgeModel, AtomwiseKernelRidgeCV: AtomwiseKernelRidge,
-                    NystromRidgeCV: NystromRidge}
-    if type(model) not in counterparts:
+    target = getattr(type(model), "fixed_class", None)
+    if target is None:
         raise ModelInputError(f"{type(model).__name__} has no fixed-hyperparameter counterpart")
     check_is_fitted(model, "width_")
-    target = counterparts[type(model)]
     settings = {name: value for name, value in model.get_params().items() if name in target().get_params()}
     return target(**{**settings, "width": model.width_, "regularization": model.regularization_})

@@ -27,6 +27,7 @@ import sklearn
 from ase.data import chemical_symbols
 
 import molinv
+from molinv.errors import MolinvError
 from molinv.models.baseline import ElementBaseline
 from molinv.models.inputs import fingerprint
 from molinv.models.kernel_ridge import AtomwiseKernelRidge, AtomwiseKernelRidgeCV, KernelRidgeCV, KernelRidgeModel
@@ -57,7 +58,7 @@ MODEL_CLASSES = {
 DEFAULT_UNITS = {"energy": "eV", "length": "Angstrom"}
 
 
-class ModelFileError(ValueError):
+class ModelFileError(MolinvError, ValueError):
     """A model file that cannot be used: unreadable, truncated, edited, or of another format version."""
 
     def __init__(self, path, reason: str):

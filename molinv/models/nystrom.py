@@ -41,7 +41,6 @@ from __future__ import annotations
 import numpy as np
 import scipy.linalg
 from sklearn.base import BaseEstimator, RegressorMixin
-from sklearn.model_selection import KFold
 from sklearn.utils.validation import check_is_fitted
 from tqdm.auto import tqdm
 
@@ -58,6 +57,7 @@ from molinv.models.kernel_ridge import (
     NotPositiveDefinite,
     check_interval_level,
     check_regularizations,
+    cv_folds,
     fit_scaling,
     forget_uncertainty,
     interval_scale,
@@ -337,8 +337,8 @@ class NystromRidgeCV(NystromRidge):
         Kernel widths, absolute or (``width_unit="median"``) in units of the median
         distance between training rows (same-element atoms for ``kernel="atomwise"``).
     regularizations : sequence of float
-    cv : int
-        Number of folds (shuffled with ``random_state``).
+    cv : int or scikit-learn splitter
+        An int means ``KFold(cv, shuffle=True, random_state=random_state)``.
     search_size : int or None
         Molecules the search runs on when there are more (drawn with ``random_state``);
         None: all of them.
@@ -348,6 +348,8 @@ class NystromRidgeCV(NystromRidge):
     ``search_rows_``, ``width_unit_value_``, ``width_``, ``regularization_`` and ``refused_`` (better
     grid points whose final factorisation failed) besides the fitted state of :class:`NystromRidge`.
     """
+
+    fixed_class = NystromRidge  # what fixed_hyperparameters makes of a fitted model
 
     def __init__(self, kernel="gaussian", widths=(0.5, 1.0, 2.0, 4.0), regularizations=(1e-8, 1e-6, 1e-4, 1e-2),
                  cv=5, width_unit="median", n_landmarks=1000, random_state=0, rcond=1e-12, dtype="float64",
@@ -373,8 +375,8 @@ class NystromRidgeCV(NystromRidge):
     def _search_rows(self, n: int) -> np.ndarray:
         if self.search_size is None or int(self.search_size) >= n:
             return np.arange(n)
-        if int(self.search_size) < int(self.cv):
-            raise ModelInputError(f"search_size must be at least cv={self.cv} (or None), got {self.search_size!r}")
+        if int(self.search_size) < 2:
+            raise ModelInputError(f"search_size must be at least 2 (or None), got {self.search_size!r}")
         # A generator of its own, so that the landmark draw does not depend on search_size.
         return np.sort(np.random.default_rng([self.random_state, 1]).choice(n, int(self.search_size), replace=False))
 
@@ -387,15 +389,13 @@ class NystromRidgeCV(NystromRidge):
         self._check_settings()
         X = self._inputs(X)
         y = targets(y, len(X))
-        if int(self.cv) < 2 or int(self.cv) > len(y):
-            raise ModelInputError(f"cv must be between 2 and the {len(y)} training molecules, got {self.cv!r}")
         regularizations = check_regularizations(self.regularizations)
         reserved = self._choose_landmarks(X, np.random.default_rng(self.random_state))
         self.width_unit_value_ = self._width_unit_value(X)
         widths = check_widths(self.widths) * self.width_unit_value_
         rows = self.search_rows_ = self._search_rows(len(y))
         searched, y_searched = (X, y) if len(rows) == len(y) else (X[rows], y[rows])
-        folds = list(KFold(int(self.cv), shuffle=True, random_state=self.random_state).split(np.zeros((len(rows), 1))))
+        folds = cv_folds(self.cv, len(rows), self.random_state)
         residuals = []
         for train, validation in folds:
             state = fit_baseline(self.baseline, searched[train], y_searched[train])

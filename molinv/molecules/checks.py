@@ -10,6 +10,7 @@ from ase.data import covalent_radii
 from scipy.sparse.csgraph import connected_components
 from scipy.spatial.distance import pdist, squareform
 
+from ..errors import MolinvError
 from .units import LENGTH_UNITS
 
 #: Shortest distance accepted between two nuclei, Angstrom. The shortest covalent bond,
@@ -48,7 +49,7 @@ MAX_CONTACT_ANGSTROM = 4.0
 MAX_MESSAGE_CHARACTERS = 300
 
 
-class MoleculeError(ValueError):
+class MoleculeError(MolinvError, ValueError):
     """A molecule that fails a check; the message gives the reason."""
 
 

@@ -26,6 +26,7 @@ import pandas as pd
 from ase import Atoms
 from ase.data import atomic_numbers
 
+from ..errors import MolinvError
 from .units import ENERGY_UNITS
 
 CITATION = (
@@ -79,7 +80,7 @@ ATOM_REFERENCE_HARTREE = {
 }
 
 
-class Qm9Unavailable(RuntimeError):
+class Qm9Unavailable(MolinvError, RuntimeError):
     """The qm9pack wheel is not installed."""
 
 

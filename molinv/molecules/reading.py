@@ -34,6 +34,7 @@ from ase.io.extxyz import key_val_str_to_dict, parse_properties
 from rdkit import Chem
 from tqdm.auto import tqdm
 
+from ..errors import MolinvError
 from .checks import MoleculeError, Rejected, check_geometry, shorten
 from .electrons import merge_stated, settle_electronic_state
 from .embedding import (EMBED_SEED, atoms_from_rdkit, charge_and_multiplicity, embed_smiles, rdkit_messages,
@@ -52,7 +53,7 @@ FORMATS_BY_SUFFIX = {
 }
 
 
-class InputError(ValueError):
+class InputError(MolinvError, ValueError):
     """A file that cannot be read at all (missing, unknown format, no SMILES column...)."""
 
 

@@ -11,6 +11,8 @@ from __future__ import annotations
 import numpy as np
 from ase import units as _ase_units
 
+from ..errors import MolinvError
+
 INTERNAL_ENERGY_UNIT = "eV"
 INTERNAL_LENGTH_UNIT = "Angstrom"
 
@@ -52,7 +54,7 @@ _ALIASES = {
 }
 
 
-class UnitError(ValueError):
+class UnitError(MolinvError, ValueError):
     """An energy or length unit that molinv does not know."""
 
 

@@ -24,6 +24,7 @@ import pandas as pd
 
 from molinv.cluster.chunks import ChunkError, ChunkReport, claim_folder, file_fingerprint, run_chunks
 from molinv.descriptors.store import molecules_fingerprint
+from molinv.errors import MolinvError
 from molinv.molecules.checks import Rejected
 from molinv.molecules.packed import MoleculeChunk, packed_chunks
 from molinv.molecules.reading import iter_records
@@ -37,7 +38,7 @@ from .table import CAUTION, prediction_table
 SHOWN_REASON_KINDS = 8
 
 
-class ScreenError(ValueError):
+class ScreenError(MolinvError, ValueError):
     """A screen that cannot start or resume (for example: folder of another screen)."""
 
 
