@@ -174,7 +174,8 @@ def _sigint_held(always: bool = False):
     the signal reaches Python's handler, as a KeyboardInterrupt, once the record is built.
     The kernel would hand a held signal to any other thread that does not hold it (a BLAS
     pool started before molinv), which is worse, so it is held only when every other
-    thread holds it too (or ``always``: threads started inside the block inherit the hold)."""
+    thread holds it too (or ``always``: threads started inside the block inherit the hold).
+    The command line imports the libraries that start thread pools with SIGINT held (molinv.cli)."""
     hold = (hasattr(signal, "pthread_sigmask") and threading.current_thread() is threading.main_thread()
             and (always or _other_threads_hold_sigint()))
     if not hold:
