@@ -24,6 +24,10 @@ from .outputs import check_writable, written_atomically  # noqa: E402
 
 if _HOLD_SIGINT:
     signal.pthread_sigmask(signal.SIG_SETMASK, _mask_before_imports)
+    # tqdm's monitor thread would start with the first progress bar, not holding SIGINT.
+    from tqdm import tqdm as _tqdm  # noqa: E402
+
+    _tqdm.monitor_interval = 0
 
 UNITS_HELP = (
     "Internal units are eV and Angstrom. Lengths in input files: "

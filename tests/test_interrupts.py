@@ -2,6 +2,7 @@
 embedding and carries on), so molinv must pass the interruption on."""
 
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -80,7 +81,7 @@ def test_thread_pools_started_by_the_command_hold_ctrl_c():
     # reaches Python's handler; a pool thread that takes it runs RDKit's handler instead, which
     # loses it when the embedding has passed its last check (6 of 40 single Ctrl-C were lost).
     probe = ("import os, threading, molinv.cli\n"
-             "from molinv.molecules.reading import _other_threads_hold_sigint\n"
+             "from molinv.molecules.embedding import _other_threads_hold_sigint\n"
              "print(len(os.listdir('/proc/self/task')), _other_threads_hold_sigint())\n")
     env = {key: value for key, value in os.environ.items() if not key.endswith("_NUM_THREADS")}
     env["OPENBLAS_NUM_THREADS"] = "4"  # a pool even on a small machine
@@ -91,7 +92,7 @@ def test_thread_pools_started_by_the_command_hold_ctrl_c():
 
 
 def _interrupt_when(command, ready, timeout=180):
-    """Run the command, send one SIGINT once ``ready(pid)`` holds, and return (exit status, seconds
+    """Run the command, send one SIGINT once ``ready(pid, stderr so far)`` holds, and return (exit status, seconds
     from the signal to the exit, the processes it had started)."""
     psutil = pytest.importorskip("psutil")
     process = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
@@ -100,7 +101,7 @@ def _interrupt_when(command, ready, timeout=180):
                               daemon=True)
     reader.start()
     deadline = time.time() + timeout
-    while not ready(process.pid) and process.poll() is None and time.time() < deadline:
+    while not ready(process.pid, b"".join(err)) and process.poll() is None and time.time() < deadline:
         time.sleep(0.05)
     assert process.poll() is None, ("the run ended before the signal", b"".join(err)[-1500:])
     workers = psutil.Process(process.pid).children(recursive=True)
@@ -123,7 +124,7 @@ def test_ctrl_c_stops_fit_with_workers(tmp_path):
     psutil = pytest.importorskip("psutil")
     command = [sys.executable, "-m", "molinv.cli", "fit", "qm9:2000:5", "--jobs", "2", "--out", str(tmp_path / "m.npz")]
 
-    def describing(pid):  # the worker processes have started
+    def describing(pid, _):  # the worker processes have started
         return len(psutil.Process(pid).children(recursive=True)) >= 2
 
     status, stopped, workers, alive, text = _interrupt_when(command, describing)
@@ -147,7 +148,7 @@ def test_ctrl_c_stops_screen_and_keeps_finished_chunks(tmp_path, qm9):
                "--out", str(tmp_path / "screen"), "--jobs", "2", "--chunk-size", "20"]
     finished = {}
 
-    def two_chunks_done(pid):
+    def two_chunks_done(pid, _):
         finished["before"] = {path.name: path.read_bytes() for path in chunks.glob("part-*.csv")}
         return len(finished["before"]) >= 2
 
@@ -157,3 +158,17 @@ def test_ctrl_c_stops_screen_and_keeps_finished_chunks(tmp_path, qm9):
     assert stopped < 2.0, stopped
     kept = {path.name: path.read_bytes() for path in chunks.glob("part-*.csv")}
     assert finished["before"].items() <= kept.items()  # every chunk finished before the signal is kept, unchanged
+
+
+def test_ctrl_c_stops_curve_while_it_embeds_smiles(tmp_path):
+    # curve embeds QM9's SMILES itself (molinv.molecules.route), not through the file reader.
+    command = [sys.executable, "-m", "molinv.cli", "curve", "qm9:2000:4", "--out", str(tmp_path / "curve")]
+
+    def embedding(pid, err):  # some molecules embedded already
+        return re.search(rb"embedding SMILES: +[1-9]", err) is not None
+
+    status, stopped, _, alive, text = _interrupt_when(command, embedding)
+    assert "embedding SMILES" in text, text[-1500:]
+    assert status == 130, (status, text[-1500:])
+    assert not alive
+    assert stopped < 2.0, stopped
