@@ -7,13 +7,27 @@ input, 1 for other failures.
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
 from importlib import resources
 from pathlib import Path
 
-from .errors import MolinvError
-from .molecules.units import ENERGY_UNITS, LENGTH_UNITS
-from .outputs import check_writable, written_atomically
+# Native thread pools (OpenBLAS starts its pool when numpy is imported) inherit the signal
+# mask of the thread that starts them. Started with SIGINT held, they never take a Ctrl-C,
+# so molinv.molecules.reading can hold it in the main thread while RDKit embeds: RDKit's
+# own SIGINT handler would otherwise take it in a pool thread and lose it (6 of 40).
+_HOLD_SIGINT = hasattr(signal, "pthread_sigmask")
+_mask_before_imports = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT}) if _HOLD_SIGINT else None
+from .errors import MolinvError  # noqa: E402
+from .molecules.units import ENERGY_UNITS, LENGTH_UNITS  # noqa: E402
+from .outputs import check_writable, written_atomically  # noqa: E402
+
+if _HOLD_SIGINT:
+    signal.pthread_sigmask(signal.SIG_SETMASK, _mask_before_imports)
+    # tqdm's monitor thread would start with the first progress bar, not holding SIGINT.
+    from tqdm import tqdm as _tqdm  # noqa: E402
+
+    _tqdm.monitor_interval = 0
 
 UNITS_HELP = (
     "Internal units are eV and Angstrom. Lengths in input files: "

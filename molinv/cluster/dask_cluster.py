@@ -13,7 +13,7 @@ Where the cluster comes from (:func:`open_cluster`):
     ``dask worker tcp://HOST:PORT`` on each machine. Anyone who reaches a scheduler
     can run code on its workers: a tcp:// scheduler on another machine is warned
     about (:class:`UnsafeClusterWarning`); tls:// takes its certificates from Dask's
-    configuration (``distributed.comm.tls``).
+    configuration (``distributed.comm.tls``) and is warned about without them.
 ``jobqueue:KIND[:JOBS]``
     A batch-system cluster from dask-jobqueue (KIND: slurm, pbs, sge, lsf,
     htcondor, moab or oar), with ``JOBS`` batch jobs (default 1) of workers.
@@ -51,19 +51,49 @@ class ClusterError(MolinvError, RuntimeError):
 
 
 class UnsafeClusterWarning(UserWarning):
-    """A scheduler on another machine reached without TLS: whoever reaches it runs code on the workers."""
+    """A scheduler on another machine reached without TLS (whoever reaches it runs code on the workers), or a
+    tls:// scheduler with no certificates in Dask's configuration."""
 
 
 def unsafe_address_reason(address: str) -> str | None:
-    """Why connecting to ``address`` exposes the workers ('' or None when it does not): a
-    plain tcp:// scheduler on another machine has no encryption and no authentication."""
+    """Why connecting to ``address`` exposes the workers or fails to connect (None when it
+    does not): a plain tcp:// scheduler on another machine has no encryption and no
+    authentication; a tls:// one needs certificates in Dask's configuration."""
     scheme, _, rest = address.partition("://")
     host = rest.rsplit(":", 1)[0].strip("[]")
+    if scheme == "tls":
+        missing = [setting for setting, value in _tls_client_settings().items() if not value]
+        if not missing:
+            return None
+        return (f"the Dask scheduler {address} is a TLS address but Dask's configuration lacks {', '.join(missing)}: "
+                "the client has no certificates to connect with (see the README, 'cluster')")
     if scheme != "tcp" or host == "localhost" or _is_loopback(host):
         return None
     return (f"the Dask scheduler {address} is reached without TLS or authentication: anyone who can reach it can "
             "run code on its workers. Use a tls:// address with certificates in Dask's configuration "
             "(distributed.comm.tls), or keep the scheduler on a private network")
+
+
+def _tls_client_settings() -> dict[str, object]:
+    """What a client needs from Dask's configuration to reach a tls:// scheduler: the authority
+    that signed the scheduler's certificate and the client's own certificate (Dask's TLS checks
+    both ends; the key may be in the certificate file). A security loader, where configured,
+    provides them instead."""
+    import dask
+
+    if dask.config.get("distributed.client.security-loader", None):
+        return {"distributed.client.security-loader": True}
+    return {setting: dask.config.get(setting, None)
+            for setting in ("distributed.comm.tls.ca-file", "distributed.comm.tls.client.cert")}
+
+
+def client_security(address: str):
+    """The ``distributed.Security`` a client uses for ``address``: built from Dask's
+    configuration (``distributed.comm.tls.*``) for a tls:// scheduler, None (Dask's default)
+    otherwise or where a security loader is configured."""
+    if not address.startswith("tls://") or "distributed.client.security-loader" in _tls_client_settings():
+        return None
+    return _dask().Security()
 
 
 def _is_loopback(host: str) -> bool:
@@ -194,7 +224,7 @@ def open_cluster(spec: str, n_workers: int | None = None) -> DaskCluster:
     if unsafe:
         warnings.warn(unsafe, UnsafeClusterWarning, stacklevel=2)
     try:
-        client = distributed.Client(address, timeout="30s")
-    except OSError as error:
+        client = distributed.Client(address, timeout="30s", security=client_security(address))
+    except (OSError, TypeError) as error:  # Dask's TypeError: a tls:// address without certificates
         raise ClusterError(f"cannot reach the Dask scheduler at {address}: {error}") from None
     return DaskCluster(client)

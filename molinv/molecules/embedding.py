@@ -9,8 +9,12 @@ SMILES always gives the same geometry on the same RDKit version.
 from __future__ import annotations
 
 import logging
+import os
 import re
+import signal
+import threading
 from contextlib import contextmanager
+from pathlib import Path
 
 import numpy as np
 from ase import Atoms
@@ -87,7 +91,73 @@ def atoms_from_rdkit(mol: Chem.Mol, conformer_id: int = -1) -> Atoms:
     return Atoms(numbers=numbers, positions=positions)
 
 
+#: What RDKit logs when a Ctrl-C reached it during an embedding (RDKit 2026.09).
+RDKIT_INTERRUPTED = "Interrupted, cancelling"
+
+
+@contextmanager
+def sigint_held(always: bool = False):
+    """SIGINT held back from the main thread while a record is built. RDKit's embedding
+    installs its own SIGINT handler, which only asks the embedding to stop: a signal it
+    takes after its last check is lost and the run carries on (6 of 30 measured). Held,
+    the signal reaches Python's handler, as a KeyboardInterrupt, once the record is built.
+    The kernel would hand a held signal to any other thread that does not hold it (a BLAS
+    pool started before molinv), which is worse, so it is held only when every other
+    thread holds it too (or ``always``: threads started inside the block inherit the hold).
+    The command line imports the libraries that start thread pools with SIGINT held (molinv.cli)."""
+    hold = (hasattr(signal, "pthread_sigmask") and threading.current_thread() is threading.main_thread()
+            and (always or _other_threads_hold_sigint()))
+    if not hold:
+        yield
+        return
+    previous = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, previous)
+
+
+_threads_holding_sigint: dict[frozenset, bool] = {}
+
+
+def _other_threads_hold_sigint() -> bool:
+    """Whether every other thread of this process holds SIGINT (from Linux's /proc; False
+    where it cannot be read). Checked again only when the set of threads changes."""
+    try:
+        threads = frozenset(os.listdir("/proc/self/task"))
+    except OSError:
+        return False
+    if threads not in _threads_holding_sigint:
+        _threads_holding_sigint.clear()
+        me = str(threading.get_native_id())
+        _threads_holding_sigint[threads] = all(_holds_sigint(thread) for thread in threads if thread != me)
+    return _threads_holding_sigint[threads]
+
+
+def _holds_sigint(thread: str) -> bool:
+    try:
+        status = Path(f"/proc/self/task/{thread}/status").read_text()
+    except OSError:
+        return True  # the thread has ended
+    blocked = next((line.split()[1] for line in status.splitlines() if line.startswith("SigBlk:")), "0")
+    return bool(int(blocked, 16) & (1 << (signal.SIGINT - 1)))
+
+
 def embed_smiles(smiles: str, seed: int = EMBED_SEED, optimize: bool = True, conformers: int | None = None) -> Atoms:
+    """3D geometry with explicit hydrogens for a SMILES string (see :func:`_embed_smiles`);
+    raises KeyboardInterrupt when Ctrl-C was pressed while RDKit embedded it."""
+    # Only embedding sets RDKit's own SIGINT handler (see sigint_held).
+    with sigint_held(), rdkit_messages() as messages:
+        try:
+            return _embed_smiles(smiles, seed, optimize, conformers)
+        finally:
+            if any(RDKIT_INTERRUPTED in message for message in messages):
+                # A SIGINT that reached RDKit in another thread: it cancelled this embedding (which then
+                # fails or returns), so the failure is not the SMILES's.
+                raise KeyboardInterrupt
+
+
+def _embed_smiles(smiles: str, seed: int = EMBED_SEED, optimize: bool = True, conformers: int | None = None) -> Atoms:
     """3D geometry with explicit hydrogens for a SMILES string.
 
     ETKDG draws ``conformers`` geometries (default :data:`CONFORMERS`), each is minimised with MMFF94 (UFF where

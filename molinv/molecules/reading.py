@@ -17,11 +17,7 @@ import codecs
 import csv
 import io
 import math
-import os
 import re
-import signal
-import threading
-from contextlib import contextmanager, nullcontext
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterable, Iterator, NamedTuple, Sequence
@@ -38,7 +34,7 @@ from ..errors import MolinvError
 from .checks import MoleculeError, Rejected, check_geometry, shorten
 from .electrons import merge_stated, settle_electronic_state
 from .embedding import (EMBED_SEED, atoms_from_rdkit, charge_and_multiplicity, embed_smiles, rdkit_messages,
-                        rdkit_reason)
+                        rdkit_reason, sigint_held)
 from .units import ENERGY_UNITS, LENGTH_UNITS, energy_unit, length_unit
 
 FORMATS_BY_SUFFIX = {
@@ -162,57 +158,6 @@ def iter_molecules(
         yield record.build_molecule()
 
 
-#: What RDKit logs when a Ctrl-C reached it during an embedding (RDKit 2026.09).
-RDKIT_INTERRUPTED = "Interrupted, cancelling"
-
-
-@contextmanager
-def _sigint_held(always: bool = False):
-    """SIGINT held back from the main thread while a record is built. RDKit's embedding
-    installs its own SIGINT handler, which only asks the embedding to stop: a signal it
-    takes after its last check is lost and the run carries on (6 of 30 measured). Held,
-    the signal reaches Python's handler, as a KeyboardInterrupt, once the record is built.
-    The kernel would hand a held signal to any other thread that does not hold it (a BLAS
-    pool started before molinv), which is worse, so it is held only when every other
-    thread holds it too (or ``always``: threads started inside the block inherit the hold)."""
-    hold = (hasattr(signal, "pthread_sigmask") and threading.current_thread() is threading.main_thread()
-            and (always or _other_threads_hold_sigint()))
-    if not hold:
-        yield
-        return
-    previous = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
-    try:
-        yield
-    finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, previous)
-
-
-_threads_holding_sigint: dict[frozenset, bool] = {}
-
-
-def _other_threads_hold_sigint() -> bool:
-    """Whether every other thread of this process holds SIGINT (from Linux's /proc; False
-    where it cannot be read). Checked again only when the set of threads changes."""
-    try:
-        threads = frozenset(os.listdir("/proc/self/task"))
-    except OSError:
-        return False
-    if threads not in _threads_holding_sigint:
-        _threads_holding_sigint.clear()
-        me = str(threading.get_native_id())
-        _threads_holding_sigint[threads] = all(_holds_sigint(thread) for thread in threads if thread != me)
-    return _threads_holding_sigint[threads]
-
-
-def _holds_sigint(thread: str) -> bool:
-    try:
-        status = Path(f"/proc/self/task/{thread}/status").read_text()
-    except OSError:
-        return True  # the thread has ended
-    blocked = next((line.split()[1] for line in status.splitlines() if line.startswith("SigBlk:")), "0")
-    return bool(int(blocked, 16) & (1 << (signal.SIGINT - 1)))
-
-
 @dataclass(frozen=True)
 class PendingRecord:
     """A record located in a file but not built yet.
@@ -236,16 +181,7 @@ class PendingRecord:
 
     def build_molecule(self) -> Atoms | Rejected:
         """The molecule, or the record's rejection; raises KeyboardInterrupt when Ctrl-C was
-        pressed while RDKit embedded it."""
-        # Only embedding sets RDKit's own SIGINT handler (see _sigint_held).
-        with _sigint_held() if self.smiles is not None else nullcontext(), rdkit_messages() as messages:
-            built = self._build()
-        if any(RDKIT_INTERRUPTED in message for message in messages):
-            # A SIGINT that reached RDKit in another thread: it cancelled this embedding and returned.
-            raise KeyboardInterrupt
-        return built
-
-    def _build(self) -> Atoms | Rejected:
+        pressed while RDKit embedded it (see :func:`molinv.molecules.embedding.embed_smiles`)."""
         try:
             atoms = self.build()
             _finish(atoms, self.units, self.name or f"{Path(self.source).stem}:{self.number}",
@@ -292,7 +228,7 @@ def iter_records(path, *, file_format: str | None = None, length: str = "Angstro
 
 
 def _pending(records, path: Path, units: UnitsDeclared, progress, skip_records: int) -> Iterator[PendingRecord]:
-    with _sigint_held(always=True):  # a monitor thread tqdm starts here inherits the hold
+    with sigint_held(always=True):  # a monitor thread tqdm starts here inherits the hold
         bar = tqdm(records, desc=path.name, unit="rec", disable=_disabled(progress))
     for number, line, name, build in bar:
         if number > skip_records:
