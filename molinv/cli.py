@@ -561,7 +561,7 @@ def run_pick_loop(args) -> int:
     with written_atomically(args.out / "summary.csv") as temporary:
         summary.to_csv(temporary, index=False)
     plot_learning_curves(summary, {}, args.unit, None, args.out / "learning_curve.png")
-    shown = summary[["size", "mae_mean", "rmse_mean", "max_error_mean"]]
+    shown = summary[["size"] + [f"{metric}_mean_{args.unit}" for metric in ("mae", "rmse", "max_error")]]
     shown.columns = ["labelled", f"test MAE ({args.unit})", f"RMSE ({args.unit})", f"max error ({args.unit})"]
     print(f"{loop.label}, test set of {len(test)}:")
     print(shown.to_string(index=False, float_format=lambda v: f"{v:.2f}"))
