@@ -698,7 +698,7 @@ def _csv_records(path: Path, smiles_column: str | None, name_column: str | None,
         raise InputError(shorten(f"{path}: column names repeat in the header: {', '.join(map(repr, repeated))}"))
     smiles_key = _find_column(columns, smiles_column, ("smiles",), path)
     if smiles_key is None:
-        raise InputError(shorten(f"{path}: no SMILES column; name one with smiles_column "
+        raise InputError(shorten(f"{path}: no SMILES column; name it with --smiles-column (smiles_column in Python) "
                                  f"(columns: {', '.join(columns)})"))
     name_key = _find_column(columns, name_column, ("name", "id"), path)
     name_index = columns.index(name_key) if name_key else None
