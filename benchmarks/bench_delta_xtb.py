@@ -77,7 +77,7 @@ def main() -> int:
     raw_xtb_mae = convert_energy(float(np.mean(np.abs((cheap - target)[test]))), "eV", "kcal/mol")
     offset_mae = convert_energy(float(np.mean(np.abs((cheap - target)[test] - np.mean((cheap - target)[test])))),
                                 "eV", "kcal/mol")
-    table = summary.pivot(index="size", columns="label", values="mae_mean").round(2)
+    table = summary.pivot(index="size", columns="label", values="mae_mean_kcal/mol").round(2)
     lines = [f"QM9 sample {len(molecules)}, test {args.test_size}, {args.draws} draws, descriptor "
              f"{args.descriptor}, kernel ridge (CV); test MAE kcal/mol of the atomization energy (U0)",
              table.to_string(), "",

@@ -41,7 +41,7 @@ from molinv.recipes import make_descriptor, make_regressor, model_inputs
 
 def labels_needed(curve: pd.DataFrame, mae: float) -> float:
     """Smallest training size where the (log-log interpolated) mean curve reaches ``mae``; inf if it never does."""
-    sizes, errors = curve["size"].to_numpy(float), curve["mae_mean"].to_numpy(float)
+    sizes, errors = curve["size"].to_numpy(float), curve["mae_mean_kcal/mol"].to_numpy(float)
     for i in range(len(sizes)):
         if errors[i] <= mae:
             if i == 0:
@@ -105,17 +105,17 @@ def main() -> int:
 
     largest = max(args.sizes)
     random_curve = summary[summary["label"] == "random"]
-    goal = float(random_curve.loc[random_curve["size"] == largest, "mae_mean"].iloc[0])
+    goal = float(random_curve.loc[random_curve["size"] == largest, "mae_mean_kcal/mol"].iloc[0])
     tuning = "CV on round 0 only, then fixed" if args.tune_once else "CV every round"
     lines = [f"QM9 sample {args.molecules}, test {args.test_size}, descriptor {args.descriptor}, kernel ridge "
              f"({tuning}), seeds {args.seeds}; MAE kcal/mol, mean over seeds",
-             summary.pivot(index="size", columns="label", values="mae_mean").round(2).to_string(), "",
+             summary.pivot(index="size", columns="label", values="mae_mean_kcal/mol").round(2).to_string(), "",
              "MAE kcal/mol, standard deviation over seeds",
-             summary.pivot(index="size", columns="label", values="mae_std").round(2).to_string(), "",
+             summary.pivot(index="size", columns="label", values="mae_std_kcal/mol").round(2).to_string(), "",
              "RMSE kcal/mol, mean over seeds",
-             summary.pivot(index="size", columns="label", values="rmse_mean").round(2).to_string(), "",
+             summary.pivot(index="size", columns="label", values="rmse_mean_kcal/mol").round(2).to_string(), "",
              "largest test error kcal/mol, mean over seeds",
-             summary.pivot(index="size", columns="label", values="max_error_mean").round(1).to_string(), "",
+             summary.pivot(index="size", columns="label", values="max_error_mean_kcal/mol").round(1).to_string(), "",
              f"random batches at {largest} labels: {goal:.2f} kcal/mol"]
     for label, curve in summary.groupby("label"):
         needed = labels_needed(curve, goal)

@@ -133,7 +133,7 @@ def on_route(args, result):
     moved = onto_embedded_route(result.molecules, n_jobs=args.jobs, progress=True)
     kept = [item for item in moved if not isinstance(item, str)]
     refused = [Rejected(source=result.source, record=atoms.info.get("record"), line=None,
-                        name=atoms.info.get("name"), reason=item)
+                        name=atoms.info.get("name"), reason=item, smiles=atoms.info.get("smiles"))
                for atoms, item in zip(result.molecules, moved) if isinstance(item, str)]
     return ReadResult(source=result.source, molecules=kept, rejected=list(result.rejected) + refused)
 
@@ -167,6 +167,16 @@ def write_rejected(rejected, path: Path) -> None:
     table = pd.DataFrame([[getattr(r, c) for c in columns] for r in rejected], columns=columns)
     with written_atomically(path) as temporary:
         spreadsheet_safe(table).to_csv(temporary, index=False)
+
+
+def write_result_table(table, path: Path, unit: str) -> None:
+    """A prediction table as CSV: energies and distances to the digits that mean something, text safe for
+    spreadsheets."""
+    from .screening.precision import rounded
+    from .screening.spreadsheet import spreadsheet_safe
+
+    with written_atomically(path) as temporary:
+        spreadsheet_safe(rounded(table, unit)).to_csv(temporary, index=False)
 
 
 def write_geometries(path: Path, molecules) -> None:
@@ -341,8 +351,6 @@ def run_predict(args) -> int:
     from .screening.held_out import compare_with_references
     from .screening.ranking import ranking_note
 
-    from .screening.spreadsheet import spreadsheet_safe
-
     model, metadata = EnergyModel.load(args.model_file)
     compared = []
     if args.geometries and (args.cluster or args.jobs != 1):
@@ -353,12 +361,13 @@ def run_predict(args) -> int:
         table = pd.read_csv(summary.table_path, keep_default_na=False, na_values=[""])
     else:
         result = read_input(args, require_energy=False)
-        table = prediction_table(model, result.molecules, result.rejected, unit=args.unit, target=metadata["target"])
+        print(result.summary())
+        table = prediction_table(model, result.molecules, result.rejected, unit=args.unit, target=metadata["target"],
+                                 energy_keys=(energy_key(args),))
         if energy_key(args) == metadata["target"]:
             table, compared = compare_with_references(table, result.molecules, energy_key(args), metadata["target"],
                                                       args.unit, getattr(model.regressor_, "interval_level", 0.9))
-    with written_atomically(args.out) as temporary:
-        spreadsheet_safe(table).to_csv(temporary, index=False)
+    write_result_table(table, args.out, args.unit)
     counts = table["status"].value_counts().to_dict()
     print(f"{len(table)} rows -> {args.out}: " + ", ".join(f"{n} {s}" for s, n in counts.items()))
     for line in compared:
@@ -514,7 +523,6 @@ def add_strategy_options(parser, choices) -> None:
 def run_pick(args) -> int:
     from .labels.choose import STRATEGIES, pick_table
     from .recipes import EnergyModel
-    from .screening.spreadsheet import spreadsheet_safe
 
     model, metadata = EnergyModel.load(args.model_file)
     result = read_input(args, require_energy=False)
@@ -525,10 +533,10 @@ def run_pick(args) -> int:
 
         labelled = read_molecules(args.labelled).molecules
     table = pick_table(model, result.molecules, result.rejected, args.k, unit=args.unit, target=metadata["target"],
-                       include_far=args.include_far, shortlist_factor=args.shortlist, labelled=labelled,
+                       include_far=args.include_far, energy_keys=(energy_key(args),), shortlist_factor=args.shortlist,
+                       labelled=labelled,
                        strategy=args.strategy, reference_size=args.reference, seed=args.seed)
-    with written_atomically(args.out) as temporary:
-        spreadsheet_safe(table).to_csv(temporary, index=False)
+    write_result_table(table, args.out, args.unit)
     picked = table[table["pick_order"].notna()].sort_values("pick_order")
     if args.geometries:
         by_record = {atoms.info["record"]: atoms for atoms in result.molecules}
@@ -577,7 +585,7 @@ def run_pick_loop(args) -> int:
     with written_atomically(args.out / "summary.csv") as temporary:
         summary.to_csv(temporary, index=False)
     plot_learning_curves(summary, {}, args.unit, None, args.out / "learning_curve.png")
-    shown = summary[["size", "mae_mean", "rmse_mean", "max_error_mean"]]
+    shown = summary[["size"] + [f"{metric}_mean_{args.unit}" for metric in ("mae", "rmse", "max_error")]]
     shown.columns = ["labelled", f"test MAE ({args.unit})", f"RMSE ({args.unit})", f"max error ({args.unit})"]
     print(f"{loop.label}, test set of {len(test)}:")
     print(shown.to_string(index=False, float_format=lambda v: f"{v:.2f}"))
@@ -600,7 +608,6 @@ def run_demo(args) -> int:
     from .molecules.route import onto_embedded_route
     from .recipes import EnergyModel, make_descriptor, make_regressor, model_inputs
     from .screening import CAUTION, prediction_table
-    from .screening.spreadsheet import spreadsheet_safe
 
     candidates_file = args.candidates
     if not candidates_file.is_file():
@@ -631,8 +638,7 @@ def run_demo(args) -> int:
     model.save(out / "model.npz", target="atomization_energy", training={"source": "QM9", "n_molecules": largest})
     read = read_molecules(candidates_file)
     table = prediction_table(model, read.molecules, read.rejected, unit="kcal/mol", target="atomization_energy")
-    with written_atomically(out / "candidates_ranked.csv") as temporary:
-        spreadsheet_safe(table).to_csv(temporary, index=False)
+    write_result_table(table, out / "candidates_ranked.csv", "kcal/mol")
     shown = ["name", "formula", "atomization_energy_kcal/mol", "std_kcal/mol",
              "atomization_energy_per_atom_kcal/mol", "relative_to_best_isomer_kcal/mol", "status"]
     print(table[shown].head(8).to_string(index=False, float_format=lambda v: f"{v:.1f}"))

@@ -25,6 +25,16 @@ def qm9_sample(qm9):
     return qm9.molecules(qm9.sample(50, seed=7))
 
 
+@pytest.fixture(scope="session")
+def counts_model_file(tmp_path_factory):
+    """A model file fitted fast: element counts and the default model on 150 QM9 molecules."""
+    from molinv.cli import main
+
+    path = tmp_path_factory.mktemp("model") / "model.npz"
+    assert main(["fit", "qm9:150:4", "--descriptor", "counts", "--out", str(path)]) == 0
+    return path
+
+
 @pytest.fixture(scope="module")
 def client():
     """A Dask LocalCluster of 2 single-threaded worker processes, and its client."""

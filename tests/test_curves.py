@@ -111,7 +111,10 @@ def test_report_files(tmp_path, counts_and_energies):
     summary = pd.read_csv(tmp_path / "report" / "summary.csv")
     assert set(summary["label"]) == {"element counts", "H and C counts only"}
     expected = summarize(run.points(), "kcal/mol")
-    np.testing.assert_allclose(summary["mae_mean"], expected["mae_mean"])
+    np.testing.assert_allclose(summary["mae_mean_kcal/mol"], expected["mae_mean_kcal/mol"])
+    # Issue 18: every measured column says its unit; sizes and draw counts are counts.
+    measured = [c for c in summary.select_dtypes("number").columns if c not in ("size", "n_draws")]
+    assert measured and all(column.endswith("_kcal/mol") for column in measured)
 
 
 def test_power_law_on_two_points_has_no_error_estimate():

@@ -32,3 +32,23 @@ def test_unreachable_sizes_read_as_one_phrase():
     assert _size_cell(2.0e10, 5.0e6, math.inf, True) == "more than 1e9 (range 5,000,000 to never; the curve is nearly flat)"
     assert _size_cell(math.inf, math.inf, math.inf, False) == "never (range unknown; the curve is not falling)"
     assert _size_cell(2400.0, 1900.0, 3100.0, True) == "2,400 (range 1,900 to 3,100)"
+
+
+def test_a_missing_smiles_column_names_the_option(tmp_path):
+    from molinv.molecules import read_molecules
+    from molinv.molecules.reading import InputError
+
+    table = tmp_path / "mine.csv"
+    table.write_text("name,structure\nethanol,CCO\n")
+    with pytest.raises(InputError) as error:
+        read_molecules(table)
+    assert str(error.value).split("(")[0].endswith("name it with --smiles-column ")
+
+
+def test_describing_in_chunks_shows_no_class_name(tmp_path, qm9_sample, capsys):
+    from molinv.descriptors.store import describe_in_chunks
+
+    descriptor = make_descriptor("counts").fit(qm9_sample)
+    describe_in_chunks(descriptor, qm9_sample[:5], tmp_path / "chunks", progress=True)
+    shown = capsys.readouterr().err
+    assert "describe molecules" in shown and type(descriptor).__name__ not in shown

@@ -171,7 +171,7 @@ def test_a_failed_save_leaves_the_previous_file_whole(models, tmp_path, monkeypa
         handle.write(b"PK\x03\x04 half a model")
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(np, "savez", disk_full)
+    monkeypatch.setattr(np, "savez_compressed", disk_full)
     with pytest.raises(OSError, match="No space left"):
         save_model(path, model, {"round": 2})
     monkeypatch.undo()

@@ -15,11 +15,9 @@ CANDIDATES = {
 }
 
 
-@pytest.fixture(scope="module")
-def model(tmp_path_factory):
-    path = tmp_path_factory.mktemp("model") / "model.npz"
-    assert main(["fit", "qm9:150:4", "--descriptor", "counts", "--out", str(path)]) == 0
-    return path
+@pytest.fixture
+def model(counts_model_file):
+    return counts_model_file
 
 
 @pytest.fixture

@@ -187,3 +187,18 @@ def test_unwritable_output_is_refused_before_the_work(tmp_path, qm9, capsys, ver
     captured = capsys.readouterr()
     assert "cannot write to" in captured.err and "a_file" in captured.err
     assert captured.out == ""  # refused before reading or fitting anything
+
+
+def test_model_file_is_compressed_and_predicts_bit_for_bit(tmp_path, no_fluorine):
+    # Issue 18 item 8: the training atoms' descriptors, most of a kernel model file, are about
+    # half zeros (atoms with no neighbour of some element); stored deflated, the file shrinks.
+    train, test = no_fluorine[:60], no_fluorine[200:220]
+    model = EnergyModel(make_descriptor("atoms"), make_regressor("kernel", per_atom=True)).fit(train, atomization(train))
+    path = model.save(tmp_path / "model.npz", target="atomization_energy")
+    with np.load(path) as archive:
+        array_bytes = sum(archive[name].nbytes for name in archive.files)
+    assert path.stat().st_size < 0.9 * array_bytes  # 0.78 measured here, 0.49 at 2,000 QM9 molecules
+    loaded, _ = EnergyModel.load(path)
+    expected, found = model.assess(test), loaded.assess(test)
+    for key in ("predicted", "std", "distance"):
+        np.testing.assert_array_equal(found[key], expected[key])

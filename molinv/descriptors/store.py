@@ -147,7 +147,7 @@ def describe_in_chunks(descriptor: MoleculeDescriptor, molecules: Sequence[Atoms
     # Parallel work happens across chunks; inside one, the descriptor runs in its worker alone.
     worker_copy = copy.copy(descriptor).set_params(n_jobs=1, progress=False)
     run_chunks(describe_chunk, packed_chunks(molecules, chunk_size), folder, shared=worker_copy, executor=executor,
-               total=len(molecules), progress=progress, description=f"describe {type(descriptor).__name__}")
+               total=len(molecules), progress=progress, description="describe molecules")
     parts = list(read_arrays(folder))
     values = np.concatenate([part["values"] for part in parts])
     if not descriptor.per_atom:

@@ -280,13 +280,14 @@ def _differences(stored, current, prefix: str = "") -> set[str]:
 
 
 def summarize(points: pd.DataFrame, unit: str = "kcal/mol") -> pd.DataFrame:
-    """Mean and spread over draws per (label, size), converted from eV to ``unit``."""
+    """Mean and spread over draws per (label, size), converted from eV to ``unit``: columns
+    label, size, ``<metric>_<mean|std>_<unit>`` for mae, rmse and max_error, n_draws."""
     table = points.copy()
     for column in ("mae", "rmse", "max_error"):
         table[column] = convert_energy(table[column].to_numpy(), "eV", unit)
     grouped = table.groupby(["label", "size"])
     summary = grouped[["mae", "rmse", "max_error"]].agg(["mean", "std"])
-    summary.columns = [f"{metric}_{stat}" for metric, stat in summary.columns]
+    summary.columns = [f"{metric}_{stat}_{unit}" for metric, stat in summary.columns]
     summary["n_draws"] = grouped.size()
     return summary.reset_index()
 

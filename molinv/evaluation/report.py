@@ -41,8 +41,8 @@ def plot_learning_curves(summary: pd.DataFrame, fits: dict[str, PowerLaw], unit:
     plt = _pyplot()
     figure, axes = plt.subplots(figsize=(6, 4.5))
     for label, rows in summary.groupby("label"):
-        line = axes.errorbar(rows["size"], rows["mae_mean"], yerr=rows["mae_std"].fillna(0), marker="o", capsize=3,
-                             label=f"{label} (slope {fits[label].slope:.2f})" if label in fits else label)
+        line = axes.errorbar(rows["size"], rows[f"mae_mean_{unit}"], yerr=rows[f"mae_std_{unit}"].fillna(0), marker="o",
+                             capsize=3, label=f"{label} (slope {fits[label].slope:.2f})" if label in fits else label)
         if label in fits:
             fit = fits[label]
             sizes = np.geomspace(min(fit.sizes_used), max(fit.sizes_used), 20)
@@ -143,7 +143,7 @@ def write_report(
         rows.append(row)
     plot_learning_curves(summary, fits, unit, target, folder / "learning_curve.png")
 
-    best_label = summary.loc[summary["size"] == summary["size"].max()].sort_values("mae_mean").iloc[0]["label"]
+    best_label = summary.loc[summary["size"] == summary["size"].max()].sort_values(f"mae_mean_{unit}").iloc[0]["label"]
     largest = int(points.loc[points["label"] == best_label, "size"].max())
     reference = convert_energy(run.y[run.test], "eV", unit)
     predicted = convert_energy(run.predictions(best_label, largest, 0), "eV", unit)

@@ -18,6 +18,8 @@ Three strategies (:data:`STRATEGIES`):
 
 from __future__ import annotations
 
+from typing import Sequence
+
 import numpy as np
 import pandas as pd
 import scipy.linalg
@@ -267,7 +269,7 @@ def far_larger(model, heavy_atoms: pd.Series) -> np.ndarray:
 
 
 def pick_table(model, molecules, rejected=(), k: int = 10, *, unit: str = "kcal/mol", target: str = "energy",
-               include_far: bool = False, **choose_options) -> pd.DataFrame:
+               include_far: bool = False, energy_keys: Sequence[str] = ("energy",), **choose_options) -> pd.DataFrame:
     """Every input row once, as :func:`molinv.screening.table.prediction_table` gives it (record, status,
     reason, prediction, domain distance...), with ``pick_order`` (1..k for the picked, empty otherwise).
 
@@ -276,7 +278,7 @@ def pick_table(model, molecules, rejected=(), k: int = 10, *, unit: str = "kcal/
     molecule (:data:`FAR_SIZE_FACTOR`; their reason says so). Rows flagged for other reasons (unlike
     the training molecules, chemistry it never showed) are those labels teach most, and may be picked.
     Molecules need distinct ``info['record']`` numbers (reading sets them), which tie them to their
-    rows. ``choose_options`` go to :func:`choose_next`.
+    rows. ``energy_keys`` as for the prediction table; ``choose_options`` go to :func:`choose_next`.
     """
     from molinv.screening.table import prediction_table
 
@@ -285,7 +287,7 @@ def pick_table(model, molecules, rejected=(), k: int = 10, *, unit: str = "kcal/
     position = {atoms.info.get("record"): i for i, atoms in enumerate(molecules)}
     if None in position or len(position) != len(molecules):
         raise LabelError("pick needs a distinct info['record'] on every molecule (as reading sets it)")
-    table = prediction_table(model, molecules, rejected, unit=unit, target=target, rank=False)
+    table = prediction_table(model, molecules, rejected, unit=unit, target=target, rank=False, energy_keys=energy_keys)
     molecule_of_row = table["record"].map(position)
     heavy_atoms = molecule_of_row.map(lambda i: np.nan if pd.isna(i) else int(np.sum(molecules[int(i)].numbers > 1)))
     far = far_larger(model, heavy_atoms) & (table["status"] != "failed").to_numpy()

@@ -1,6 +1,8 @@
 """Model files: one ``.npz`` holding a fitted model's arrays and a JSON header, never a pickle.
 
-Layout (a zip of ``.npy`` members, as written by :func:`numpy.savez`):
+Layout (a zip of deflated ``.npy`` members, as written by :func:`numpy.savez_compressed`; the
+per-atom descriptors of a kernel model are half zeros, so the file is about half the size of
+its arrays, and loading gives the arrays bit for bit):
 
 * ``header.json`` - a uint8 array with UTF-8 JSON: format name and version, model class
   and parameters, fitted scalars, the caller's metadata (descriptor settings, ...),
@@ -167,7 +169,7 @@ def save_model(path, model, metadata: dict | None = None, extra_arrays: dict | N
     members.update({EXTRA_PREFIX + name: array for name, array in extra_arrays.items()})
     members[HEADER_MEMBER] = np.frombuffer(json.dumps(header, sort_keys=True).encode(), dtype=np.uint8)
     with written_atomically(path) as temporary, open(temporary, "wb") as handle:
-        np.savez(handle, **members)
+        np.savez_compressed(handle, **members)
     return path
 
 

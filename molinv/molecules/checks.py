@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from ase import Atoms
@@ -64,7 +64,9 @@ class Rejected:
     """One input record that did not become a molecule.
 
     ``record`` counts records from 1 in the order of the file; ``line`` is the
-    1-based line where the record starts, when the format has lines.
+    1-based line where the record starts, when the format has lines. ``smiles`` and
+    ``properties`` (the record's other columns) are kept where the record gave them, so
+    that a table row of the failed record still shows what it was.
     """
 
     source: str
@@ -72,6 +74,8 @@ class Rejected:
     line: int | None
     name: str | None
     reason: str
+    smiles: str | None = None
+    properties: dict = field(default_factory=dict, hash=False)
 
     def __post_init__(self):
         object.__setattr__(self, "reason", shorten(self.reason))

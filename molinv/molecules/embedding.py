@@ -210,6 +210,16 @@ def _embed_smiles(smiles: str, seed: int = EMBED_SEED, optimize: bool = True, co
     return atoms
 
 
+def formula_of_smiles(smiles: str) -> str:
+    """The formula, as ``ase.Atoms.get_chemical_formula`` writes it, of a SMILES with its implicit
+    hydrogens, every fragment counted; '' when RDKit cannot parse it."""
+    with rdkit_messages():
+        parsed = Chem.MolFromSmiles(smiles.strip()) if smiles.strip() else None
+    if parsed is None:
+        return ""
+    return Atoms(numbers=[atom.GetAtomicNum() for atom in Chem.AddHs(parsed).GetAtoms()]).get_chemical_formula()
+
+
 #: Geometries made from SMILES say so in ``info['geometry_source']``, which starts with this.
 EMBEDDED_PREFIX = "rdkit-"
 

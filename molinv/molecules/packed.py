@@ -38,7 +38,8 @@ class MoleculeChunk:
     named: np.ndarray  # bool
     sources: np.ndarray  # str: the input file (built molecules: their info["source"])
     smiles: np.ndarray  # str: SMILES to embed (TO_EMBED), or the molecule's SMILES when known
-    texts: np.ndarray  # str: reason (REJECTED) or scalar properties as JSON
+    texts: np.ndarray  # str: scalar properties as JSON
+    reasons: np.ndarray  # str: why the record was rejected (REJECTED), '' otherwise
     geometry_sources: np.ndarray  # str
     numbers: np.ndarray  # int16 per atom of the BUILT records
     positions: np.ndarray  # float64 (n_atoms, 3), Angstrom
@@ -61,6 +62,10 @@ class MoleculeChunk:
     @classmethod
     def from_arrays(cls, arrays: dict[str, np.ndarray]) -> MoleculeChunk:
         fields = dict(arrays)
+        if "reasons" not in fields:  # written by molinv before rejected records kept their properties
+            rejected = fields["kinds"] == REJECTED
+            fields["reasons"] = np.where(rejected, fields["texts"], "")
+            fields["texts"] = np.where(rejected, "{}", fields["texts"])
         return cls(**{**fields, "units": str(fields["units"]), "seed": int(fields["seed"])})
 
     def unpack(self) -> list[Atoms | Rejected]:
@@ -72,7 +77,8 @@ class MoleculeChunk:
             line = int(self.lines[i]) if self.lines[i] >= 0 else None
             source, number = str(self.sources[i]), int(self.records[i])
             if kind == REJECTED:
-                items.append(Rejected(source, number, line, name, str(self.texts[i])))
+                items.append(Rejected(source, number, line, name, str(self.reasons[i]), str(self.smiles[i]) or None,
+                                      json.loads(str(self.texts[i]))))
             elif kind == TO_EMBED:
                 build = SmilesBuilder(str(self.smiles[i]), self.seed, json.loads(str(self.texts[i])))
                 items.append(PendingRecord(source, number, line, name, build, units).build_molecule())
@@ -111,13 +117,13 @@ def pack(items: Sequence[PendingRecord | Atoms | Rejected]) -> MoleculeChunk:
     sets it); molecules without one are numbered by their position in ``items`` (from 1).
     """
     columns = {key: [] for key in ("kinds", "records", "lines", "names", "named", "sources", "smiles", "texts",
-                                   "geometry_sources")}
+                                   "reasons", "geometry_sources")}
     numbers, positions, sizes = [], [], []
     units, seed = "", 0
 
-    def add(kind, record, line, name, source, smiles="", text="", geometry_source="", atoms=None):
+    def add(kind, record, line, name, source, smiles="", text="{}", reason="", geometry_source="", atoms=None):
         for key, value in zip(columns, (kind, record, -1 if line is None else line, name or "", name is not None,
-                                        source, smiles, text, geometry_source)):
+                                        source, smiles, text, reason, geometry_source)):
             columns[key].append(value)
         sizes.append(0 if atoms is None else len(atoms))
         if atoms is not None:
@@ -136,11 +142,12 @@ def pack(items: Sequence[PendingRecord | Atoms | Rejected]) -> MoleculeChunk:
         if isinstance(item, PendingRecord):
             item = item.build_molecule()
         if isinstance(item, Rejected):
-            add(REJECTED, item.record, item.line, item.name, item.source, text=item.reason)
+            add(REJECTED, item.record, item.line, item.name, item.source, item.smiles or "",
+                json.dumps(item.properties), item.reason)
         else:
             info = item.info
             add(BUILT, int(info.get("record", position)), None, info.get("name"), str(info.get("source", "")),
-                str(info.get("smiles", "")), _scalar_properties(item), str(info.get("geometry_source", "")), item)
+                str(info.get("smiles", "")), _scalar_properties(item), "", str(info.get("geometry_source", "")), item)
     return MoleculeChunk(
         kinds=np.array(columns["kinds"], dtype=np.int8),
         records=np.array(columns["records"], dtype=np.int64),
@@ -150,6 +157,7 @@ def pack(items: Sequence[PendingRecord | Atoms | Rejected]) -> MoleculeChunk:
         sources=np.array(columns["sources"], dtype=str),
         smiles=np.array(columns["smiles"], dtype=str),
         texts=np.array(columns["texts"], dtype=str),
+        reasons=np.array(columns["reasons"], dtype=str),
         geometry_sources=np.array(columns["geometry_sources"], dtype=str),
         numbers=np.concatenate(numbers).astype(np.int16) if numbers else np.zeros(0, np.int16),
         positions=np.concatenate(positions).astype(float) if positions else np.zeros((0, 3)),

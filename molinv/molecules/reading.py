@@ -68,8 +68,21 @@ class ReadResult:
     def n_records(self) -> int:
         return len(self.molecules) + len(self.rejected)
 
+    def unnamed(self) -> list[int]:
+        """Records of molecules the file gave no name (or an empty one), named by
+        :func:`default_name` instead."""
+        return [atoms.info["record"] for atoms in self.molecules if "record" in atoms.info
+                and atoms.info.get("name") == default_name(str(atoms.info.get("source", "")).rpartition(":")[0],
+                                                           atoms.info["record"])]
+
     def summary(self) -> str:
-        return f"{self.source}: {len(self.molecules)} molecules read, {len(self.rejected)} rejected"
+        text = f"{self.source}: {len(self.molecules)} molecules read, {len(self.rejected)} rejected"
+        unnamed = self.unnamed()
+        if unnamed:
+            shown = ", ".join(map(str, unnamed[:10])) + (", ..." if len(unnamed) > 10 else "")
+            text += (f"; {len(unnamed)} without a name in the input (records {shown}), named "
+                     f"{default_name(self.source, unnamed[0])!r} and so on")
+        return text
 
 
 @dataclass(frozen=True)
@@ -179,20 +192,32 @@ class PendingRecord:
         """The SMILES to embed, or None when the record holds coordinates."""
         return self.build.smiles if isinstance(self.build, SmilesBuilder) else None
 
+    @property
+    def properties(self) -> dict:
+        """The record's other columns, where it is a row of a SMILES table."""
+        return self.build.properties if isinstance(self.build, SmilesBuilder) else {}
+
     def build_molecule(self) -> Atoms | Rejected:
         """The molecule, or the record's rejection; raises KeyboardInterrupt when Ctrl-C was
         pressed while RDKit embedded it (see :func:`molinv.molecules.embedding.embed_smiles`)."""
         try:
             atoms = self.build()
-            _finish(atoms, self.units, self.name or f"{Path(self.source).stem}:{self.number}",
+            _finish(atoms, self.units, self.name or default_name(self.source, self.number),
                     f"{self.source}:{self.number}")
         except MoleculeError as error:
-            return Rejected(self.source, self.number, self.line, self.name, str(error))
+            return self._rejected(str(error))
         except Exception as error:  # noqa: BLE001  RDKit and ase fail in many ways on odd records; each is that record's
-            return Rejected(self.source, self.number, self.line, self.name,
-                            f"cannot build the record: {_summary(error)}")
+            return self._rejected(f"cannot build the record: {_summary(error)}")
         atoms.info["record"] = self.number
         return atoms
+
+    def _rejected(self, reason: str) -> Rejected:
+        return Rejected(self.source, self.number, self.line, self.name, reason, self.smiles, dict(self.properties))
+
+
+def default_name(source: str, record: int) -> str:
+    """The name given to a record that has none in its file: the file's stem and the record number."""
+    return f"{Path(source).stem}:{record}"
 
 
 def _summary(error: Exception) -> str:
@@ -610,7 +635,7 @@ def _csv_records(path: Path, smiles_column: str | None, name_column: str | None,
         raise InputError(shorten(f"{path}: column names repeat in the header: {', '.join(map(repr, repeated))}"))
     smiles_key = _find_column(columns, smiles_column, ("smiles",), path)
     if smiles_key is None:
-        raise InputError(shorten(f"{path}: no SMILES column; name one with smiles_column "
+        raise InputError(shorten(f"{path}: no SMILES column; name it with --smiles-column (smiles_column in Python) "
                                  f"(columns: {', '.join(columns)})"))
     name_key = _find_column(columns, name_column, ("name", "id"), path)
     name_index = columns.index(name_key) if name_key else None

@@ -20,7 +20,8 @@ rows at a time: the first pass reads every chunk for what the rules need from
 all rows (the first record of each name, the best value of each formula, the
 column types the chunks share); the second finishes each chunk's rows and writes
 them sorted to temporary run files; the third merges the runs into the ranked
-CSV file, numbering the ranks as the rows come out. The bookkeeping of the first
+CSV file, numbering the ranks as the rows come out (and rounding energies and distances
+for the written file only: :mod:`molinv.screening.precision`). The bookkeeping of the first
 pass grows with the number of distinct names and formulas, nothing else with the
 number of rows. :func:`finish_ranking` is the same rules on one table in memory.
 """
@@ -44,7 +45,8 @@ from tqdm.auto import tqdm
 from molinv.cluster.chunks import iter_tables
 from molinv.outputs import written_atomically
 
-from .spreadsheet import TEXT_COLUMNS, neutralised, restored
+from .precision import round_text, roundings
+from .spreadsheet import neutralised, restored, text_columns
 
 #: Sort key of a finished row, written before its fields in a run file: unranked (0 or 1),
 #: missing order value (0 or 1), order value, position of the row in the whole table.
@@ -177,7 +179,8 @@ def reason_text(reasons: pd.Series) -> pd.Series:
 def finish_rows(table: pd.DataFrame, book: RankingBook, number: int, start: int) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Second pass on chunk ``number``, whose first row is row ``start`` of the whole table:
     the finished rows (all columns but the rank) and their sort keys (:data:`KEY_COLUMNS`)."""
-    table = whole_numbers(table.astype(book.dtypes))
+    # Chunks may lack input columns others have (SDF records with other data fields).
+    table = whole_numbers(table.reindex(columns=book.dtypes.index).astype(book.dtypes))
     names = table["name"]
     uses = [book.first_use[name] if may else (number, np.nan) for name, may in zip(names, book.may_repeat(names))]
     earlier_chunk = np.array([use[0] < number for use in uses], dtype=bool)
@@ -268,8 +271,9 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
     """Rank the chunk tables of ``folder`` (see :func:`molinv.cluster.chunks.iter_tables`) into
     ``csv_path`` (and ``parquet_path``, row group by row group) with the rules of
     :func:`finish_ranking`, holding at most about ``run_rows`` rows (and one chunk) at a
-    time; the CSV file has the bytes, the Parquet file the values and types, that
-    writing ``finish_ranking`` of all chunks at once gives (in the CSV file, names and
+    time; the CSV file has the bytes, the Parquet file the values and types, that writing
+    ``finish_ranking`` of all chunks at once, rounded by :func:`molinv.screening.precision.rounded`,
+    gives (both files rounded alike; in the CSV file, names and
     reasons that a spreadsheet would run as formulas start with a quote: see
     :mod:`molinv.screening.spreadsheet`). At most ``fan_in`` run
     files are open at once.
@@ -298,7 +302,8 @@ def write_ranking(folder, csv_path, *, unit: str, target: str, parquet_path=None
         columns = list(runs.dtypes.index) + ([RANK_COLUMN] if book.ranks else [])
         leaders = set(runs.leader_keys["position"].tolist())
         with written_atomically(csv_path) as temporary:
-            ranks_of = merge_runs(merge_into_runs(runs.paths, fan_in), temporary, columns, leaders, book.ranks)
+            ranks_of = merge_runs(merge_into_runs(runs.paths, fan_in), temporary, columns, leaders, book.ranks,
+                                  text_columns(runs.dtypes), unit)
     best = runs.leaders
     if book.ranks:
         best = best.assign(**{RANK_COLUMN: pd.array([ranks_of[p] for p in runs.leader_keys["position"].tolist()],
@@ -377,16 +382,18 @@ def merge_into_runs(paths: list[Path], fan_in: int) -> list[Path]:
 
 
 def merge_runs(paths: list[Path], csv_path: Path, columns: list[str], wanted: set[int],
-               with_ranks: bool = True) -> dict[int, int]:
+               with_ranks: bool = True, texts: list[str] = (), unit: str | None = None) -> dict[int, int]:
     """Third pass: merge sorted runs into one CSV file (written as pandas writes one), numbering
-    the ranks within each formula on the way (``with_ranks``); returns the rank of each row whose
-    position is in ``wanted``."""
+    the ranks within each formula on the way (``with_ranks``), the free-text columns ``texts``
+    made safe for spreadsheets and, with the table's ``unit``, energies and distances rounded
+    (:mod:`molinv.screening.precision`); returns the rank of each row whose position is in ``wanted``."""
     found, rank, group = {}, 0, None
     with open(csv_path, "w", newline="") as handle:
         # pandas writes CSV with the csv module's default dialect and the platform's line end.
         writer = csv.writer(handle, lineterminator=os.linesep)
         writer.writerow(columns)
-        text_columns = [columns.index(c) for c in TEXT_COLUMNS if c in columns]
+        text_positions = [columns.index(c) for c in texts]
+        rounded_positions = [(columns.index(c), how) for c, how in roundings(columns, unit).items()] if unit else []
         for (unranked, _, formula, _, position), fields in merged_records(paths):
             rank = 1 if formula != group else rank + 1
             group = formula
@@ -394,8 +401,10 @@ def merge_runs(paths: list[Path], csv_path: Path, columns: list[str], wanted: se
             if position in wanted:
                 found[position] = pd.NA if unranked else rank
             row = fields[len(KEY_COLUMNS):]
-            for column in text_columns:
+            for column in text_positions:
                 row[column] = neutralised(row[column])
+            for column, rounding in rounded_positions:
+                row[column] = round_text(row[column], rounding)
             writer.writerow(row + ([text] if with_ranks else []))
     return found
 
@@ -416,7 +425,7 @@ def write_parquet(csv_path: Path, parquet_path, dtypes: pd.Series, batch_rows: i
                                      dtype={**dtypes.to_dict(), **text}):
                 batch = batch.astype(dtypes)
                 batch["reason"] = reason_text(batch["reason"])
-                for column in TEXT_COLUMNS:  # Parquet is not opened by spreadsheets: the text as read
+                for column in text_columns(dtypes):  # Parquet is not opened by spreadsheets: the text as read
                     batch[column] = batch[column].map(restored)
                 if writer is None:
                     schema = pa.Schema.from_pandas(batch, preserve_index=False)

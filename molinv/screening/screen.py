@@ -97,12 +97,13 @@ class ScreenSummary:
 """
 
 
-def predict_chunk(chunk: MoleculeChunk, model, *, unit: str, target: str) -> pd.DataFrame:
+def predict_chunk(chunk: MoleculeChunk, model, *, unit: str, target: str,
+                  energy_keys: tuple[str, ...] = ("energy",)) -> pd.DataFrame:
     """Unranked prediction table of one chunk (embedding its SMILES first); a chunk task."""
     items = chunk.unpack()
     molecules = [item for item in items if not isinstance(item, Rejected)]
     rejected = [item for item in items if isinstance(item, Rejected)]
-    return prediction_table(model, molecules, rejected, unit=unit, target=target, rank=False)
+    return prediction_table(model, molecules, rejected, unit=unit, target=target, rank=False, energy_keys=energy_keys)
 
 
 def screen_file(model, path, out, *, model_fingerprint: str, target: str = "energy", unit: str = "kcal/mol",
@@ -142,7 +143,9 @@ def screen_file(model, path, out, *, model_fingerprint: str, target: str = "ener
             import pyarrow  # noqa: F401  (checked before the chunks run, not after)
         except ImportError as error:
             raise ScreenError(f"Parquet output needs pyarrow: pip install 'molinv[parquet]' ({error})") from None
-    computed = run_chunks(partial(predict_chunk, unit=unit, target=target), packed_chunks(items, chunk_size),
+    task = partial(predict_chunk, unit=unit, target=target,
+                   energy_keys=tuple(read_options.get("energy_keys", ("energy",))))
+    computed = run_chunks(task, packed_chunks(items, chunk_size),
                           out / "chunks", shared=model, executor=executor, progress=progress,
                           description=f"screen {Path(label).name}")
     table_path = out / "ranked.csv"

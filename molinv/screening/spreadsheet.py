@@ -15,6 +15,16 @@ import pandas as pd
 FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
 #: Free-text columns of result tables: names from input files, and reasons.
 TEXT_COLUMNS = ("name", "reason")
+#: Columns of an input file's own properties start with this (see :func:`molinv.screening.table.input_cells`),
+#: so that they never take the name of one of molinv's; the text among them is free text too.
+INPUT_PREFIX = "input_"
+
+
+def text_columns(dtypes: pd.Series) -> list[str]:
+    """The free-text columns of a table with these column types: :data:`TEXT_COLUMNS` and the input's
+    own properties that are not numbers."""
+    return [column for column, dtype in dtypes.items() if column in TEXT_COLUMNS or (
+        column.startswith(INPUT_PREFIX) and not pd.api.types.is_numeric_dtype(dtype))]
 
 
 def neutralised(value):
@@ -29,9 +39,8 @@ def restored(value):
 
 
 def spreadsheet_safe(table: pd.DataFrame) -> pd.DataFrame:
-    """A copy of ``table`` with its :data:`TEXT_COLUMNS` neutralised."""
+    """A copy of ``table`` with its free-text columns (:func:`text_columns`) neutralised."""
     table = table.copy()
-    for column in TEXT_COLUMNS:
-        if column in table.columns:
-            table[column] = table[column].map(neutralised)
+    for column in text_columns(table.dtypes):
+        table[column] = table[column].map(neutralised)
     return table

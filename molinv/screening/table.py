@@ -23,10 +23,13 @@ from ase.data import chemical_symbols
 
 from molinv.descriptors.base import DescriptorError
 from molinv.molecules.checks import MoleculeError, Rejected, check_geometry, shorten
-from molinv.molecules.electrons import electronic_state
+from molinv.molecules.electrons import CHARGE, MULTIPLICITY, electronic_state
+from molinv.molecules.embedding import formula_of_smiles
+from molinv.molecules.reading import MAX_SMILES_CHARACTERS
 from molinv.molecules.units import convert_energy
 
 from .ranking import finish_ranking, whole_numbers
+from .spreadsheet import INPUT_PREFIX
 
 CAUTION = (
     "Predictions are statistical estimates, not a substitute for validated quantum-chemical calculations, "
@@ -35,6 +38,22 @@ CAUTION = (
 
 COLUMNS = ["record", "name", "smiles", "formula", "n_atoms", "charge", "multiplicity", "geometry_source", "status",
            "reason"]
+#: Properties that molinv reads into columns of its own (or sets itself): not passed through.
+OWN_PROPERTIES = ("name", "record", "source", "smiles", "geometry_source", CHARGE, MULTIPLICITY)
+
+
+def input_cells(properties: dict, energy_keys: Sequence[str]) -> dict:
+    """The scalar properties an input file gave a record, as ``input_<property>`` cells: the
+    columns of a CSV row other than its SMILES, name, charge, multiplicity and energies, the
+    data fields of an SDF record, the comment-line fields of an extended-XYZ frame. Energies
+    (``energy_keys``) are left out: reading converted them to eV, and ``predict`` compares them
+    with the predictions in columns of their own."""
+    cells = {}
+    for key, value in properties.items():
+        value = value.item() if isinstance(value, np.generic) else value
+        if key not in OWN_PROPERTIES and key not in energy_keys and isinstance(value, (bool, int, float, str)):
+            cells[INPUT_PREFIX + key] = value
+    return cells
 
 
 def describable(descriptor, atoms: Atoms) -> str:
@@ -62,17 +81,19 @@ def stated_state(atoms: Atoms) -> dict:
 
 
 def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejected] = (), unit: str = "kcal/mol",
-                     target: str = "energy", rank: bool = True) -> pd.DataFrame:
+                     target: str = "energy", rank: bool = True, energy_keys: Sequence[str] = ("energy",)) -> pd.DataFrame:
     """Predictions of a fitted :class:`~molinv.recipes.EnergyModel`, one row per input record.
 
     Columns: record, name, smiles, formula, n_atoms, geometry_source, status,
     reason, ``<target>_<unit>``, ``std_<unit>`` (calibrated standard deviation),
     ``domain_distance`` (to the nearest training molecule, in units of the
     training set's own threshold: above 1 is flagged; see
-    :class:`~molinv.screening.applicability.ApplicabilityCheck`), and with ``rank`` the
-    columns of :func:`finish_ranking`.
+    :class:`~molinv.screening.applicability.ApplicabilityCheck`), the input file's own
+    properties (:func:`input_cells`; of molecules read from a file, ``info['source']``),
+    and with ``rank`` the columns of :func:`finish_ranking`. Rejected records keep the
+    SMILES, and the formula it gives, where the input gave one.
     """
-    rows, usable, route_flags = [], [], {}
+    rows, passed, usable, route_flags = [], [], [], {}
     molecules, route_notes = model.onto_route(molecules)
     for atoms, route_note in zip(molecules, route_notes):
         row = {"record": atoms.info.get("record"), "name": atoms.info.get("name"),
@@ -89,13 +110,20 @@ def prediction_table(model, molecules: Sequence[Atoms], rejected: Sequence[Rejec
                 route_flags[len(rows)] = route_note[1]
             usable.append(len(rows))
         rows.append(row)
-    rows += [{"record": r.record, "name": r.name, "smiles": "", "formula": "", "n_atoms": np.nan, "charge": np.nan,
-              "multiplicity": np.nan, "geometry_source": "", "status": "failed", "reason": r.reason} for r in rejected]
+        passed.append(input_cells(atoms.info, energy_keys) if atoms.info.get("source") else {})
+    for r in rejected:
+        smiles = r.smiles or ""
+        rows.append({"record": r.record, "name": r.name, "smiles": smiles,
+                     "formula": formula_of_smiles(smiles) if len(smiles) <= MAX_SMILES_CHARACTERS else "",
+                     "n_atoms": np.nan, "charge": np.nan, "multiplicity": np.nan, "geometry_source": "",
+                     "status": "failed", "reason": r.reason})
+        passed.append(input_cells(r.properties, energy_keys))
     table = pd.DataFrame(rows, columns=COLUMNS)
     value_column, std_column = f"{target}_{unit}", f"std_{unit}"
     table[value_column] = np.nan
     table[std_column] = np.nan
     table["domain_distance"] = np.nan
+    table = pd.concat([table, pd.DataFrame(passed, index=table.index)], axis=1)
     if usable:
         assessed, failures = assess_apart(model, [molecules[i] for i in usable])
         table.loc[usable, value_column] = convert_energy(assessed["predicted"], "eV", unit)
