@@ -55,8 +55,8 @@ def test_ctrl_c_while_embedding_stops_the_run(tmp_path, smiles_file, delay):
     assert not (tmp_path / "rejected.csv").exists()
 
 
-def test_killed_screen_leaves_no_worker_behind(tmp_path, qm9):
-    psutil = pytest.importorskip("psutil")
+def screen_inputs(tmp_path, qm9):
+    """A quickly fitted model file and 600 QM9 SMILES to screen with it."""
     from molinv.cli import main
 
     model_path = tmp_path / "model.npz"
@@ -65,6 +65,12 @@ def test_killed_screen_leaves_no_worker_behind(tmp_path, qm9):
     candidates = tmp_path / "candidates.smi"
     candidates.write_text("".join(f"{s} q{i}\n" for i, s in zip(qm9.arrays["index"][positions],
                                                                 qm9.arrays["smiles"][positions])))
+    return model_path, candidates
+
+
+def test_killed_screen_leaves_no_worker_behind(tmp_path, qm9):
+    psutil = pytest.importorskip("psutil")
+    model_path, candidates = screen_inputs(tmp_path, qm9)
     process = subprocess.Popen([sys.executable, "-m", "molinv.cli", "screen", str(model_path), str(candidates),
                                 "--out", str(tmp_path / "screen"), "--jobs", "2", "--chunk-size", "20"],
                                stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
@@ -140,14 +146,7 @@ def test_ctrl_c_stops_fit_with_workers(tmp_path):
 
 
 def test_ctrl_c_stops_screen_and_keeps_finished_chunks(tmp_path, qm9):
-    from molinv.cli import main
-
-    model_path = tmp_path / "model.npz"
-    assert main(["fit", "qm9:150:3", "--descriptor", "counts", "--model", "baseline", "--out", str(model_path)]) == 0
-    positions = qm9.sample(600, seed=33)
-    candidates = tmp_path / "candidates.smi"
-    candidates.write_text("".join(f"{s} q{i}\n" for i, s in zip(qm9.arrays["index"][positions],
-                                                                qm9.arrays["smiles"][positions])))
+    model_path, candidates = screen_inputs(tmp_path, qm9)
     chunks = tmp_path / "screen" / "chunks"
     command = [sys.executable, "-m", "molinv.cli", "screen", str(model_path), str(candidates),
                "--out", str(tmp_path / "screen"), "--jobs", "2", "--chunk-size", "20"]
