@@ -27,9 +27,9 @@ from .checks import MoleculeError
 EMBED_SEED = 20141005
 MAX_FORCE_FIELD_STEPS = 2000
 #: ETKDG conformers minimised per SMILES; the lowest in force-field energy is described. On QM9
-#: (2,000 training and 1,000 held-out molecules given as SMILES, atoms + kernel) 4 conformers gave
-#: 2.74 kcal/mol against 3.05 with 1, at 3 times the embedding time
-#: (benchmarks/results/smiles_route/routes_atoms_kernel_2000_1000_k*.jsonl).
+#: (molecules held out and given as SMILES) 4 conformers gave 2.74 kcal/mol against 3.05 with 1 at
+#: 2,000 training molecules (atoms + kernel), 2.03 against 2.22 at 10,000 (atoms + large), at 3 times
+#: the embedding time (benchmarks/results/smiles_route/routes_*.jsonl).
 CONFORMERS = 4
 #: Geometries from the fallbacks of distance geometry are refused above this MMFF94 energy per heavy
 #: atom, kcal/mol: the QM9 cages they rescue sit at 7-12 after minimisation, cyclohexatriyne (no such
